@@ -42,9 +42,25 @@ def model_document_schema() -> dict[str, Any]:
     return {"$schema": JSON_SCHEMA_DIALECT, **ModelDocument.model_json_schema()}
 
 
+def compare_report_schema() -> dict[str, Any]:
+    """JSON Schema of the ``lti-audit compare --format json`` report."""
+    from .report import CompareReport
+
+    return {"$schema": JSON_SCHEMA_DIALECT, **CompareReport.model_json_schema()}
+
+
+def inspect_report_schema() -> dict[str, Any]:
+    """JSON Schema of the ``lti-audit inspect --format json`` report."""
+    from .report import InspectReport
+
+    return {"$schema": JSON_SCHEMA_DIALECT, **InspectReport.model_json_schema()}
+
+
 #: Registered schemas: file name under ``schemas/`` -> callable returning the schema.
 SCHEMAS: dict[str, Callable[[], dict[str, Any]]] = {
     "model-document.schema.json": model_document_schema,
+    "compare-report.schema.json": compare_report_schema,
+    "inspect-report.schema.json": inspect_report_schema,
 }
 
 

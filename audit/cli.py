@@ -1,0 +1,150 @@
+"""The ``lti-audit`` command.
+
+Exit statuses (DESIGN.md): 0 equivalent / no problem; 1 different / problem found;
+2 invalid input or usage (a clear message on stderr); 3 inconclusive.
+Heavy numerical modules are imported lazily so that ``--help`` and usage errors are fast.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from typing import Sequence
+
+EXIT_OK = 0
+EXIT_DIFFERENT = 1
+EXIT_INVALID = 2
+EXIT_INCONCLUSIVE = 3
+EXIT_INTERNAL = 4
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.print_usage(sys.stderr)
+        sys.stderr.write(f"lti-audit: error: {message}\n")
+        raise SystemExit(EXIT_INVALID)
+
+
+def _positive_fraction(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"--rtol must be a number, got {text!r}") from None
+    if not (0.0 < value < 1.0):
+        raise argparse.ArgumentTypeError(f"--rtol must be between 0 and 1 (exclusive), got {text}")
+    return value
+
+
+def _nonnegative(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds >= 0, got {text}")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from .evidence import DEFAULT_RTOL
+    from .verdict import ESCALATION_SECONDS
+
+    parser = _Parser(
+        prog="lti-audit",
+        description="Decide, with numerical evidence, whether claimed-equivalent LTI models "
+        "describe the same system.",
+        epilog="Exit status: 0 equivalent / no problem, 1 different / problem, "
+        "2 invalid input or usage, 3 inconclusive.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    cmp_ = sub.add_parser("compare", help="audit a set of claimed-equivalent models (pairwise against the first)")
+    cmp_.add_argument("models", nargs="+", metavar="MODEL", help="model documents (JSON, YAML, TOML or .npz)")
+    cmp_.add_argument("--rtol", type=_positive_fraction, default=DEFAULT_RTOL,
+                      help=f"relative tolerance on the peak gain of the difference (default {DEFAULT_RTOL:g})")
+    cmp_.add_argument("--format", choices=("text", "json"), default="text")
+    cmp_.add_argument("--escalation-seconds", type=_nonnegative, default=ESCALATION_SECONDS,
+                      help="time budget per pair for extended-precision re-evaluation "
+                      f"(default {ESCALATION_SECONDS:g}; 0 disables it)")
+    ins = sub.add_parser("inspect", help="report one model's properties and problems")
+    ins.add_argument("model", metavar="MODEL")
+    ins.add_argument("--format", choices=("text", "json"), default="text")
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return EXIT_INVALID
+    from .errors import AuditError
+
+    try:
+        if args.command == "compare":
+            return _compare(args)
+        return _inspect(args)
+    except AuditError as exc:
+        sys.stderr.write(f"lti-audit: error: {exc}\n")
+        return EXIT_INVALID
+    except KeyboardInterrupt:  # pragma: no cover
+        sys.stderr.write("lti-audit: interrupted\n")
+        return 130
+    except Exception as exc:  # noqa: BLE001 - last line of defence: no traceback for users
+        if os.environ.get("LTI_AUDIT_DEBUG"):
+            raise
+        sys.stderr.write(
+            f"lti-audit: internal error ({type(exc).__name__}: {exc}); this is a bug in "
+            "lti-audit, not in your models. Re-run with LTI_AUDIT_DEBUG=1 for details and "
+            "please report it.\n"
+        )
+        return EXIT_INTERNAL
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from .errors import IncompatibleModelsError
+    from .loading import load_realization
+    from .report import compare_report, render_compare_text, render_json
+    from .verdict import Options, compare_models, overall_verdict
+
+    if len(args.models) < 2:
+        sys.stderr.write("lti-audit: error: compare needs at least two models (got 1)\n")
+        return EXIT_INVALID
+    start = time.perf_counter()
+    models = [load_realization(path) for path in args.models]
+    names = [m.name or os.path.basename(p) for m, p in zip(models, args.models)]
+    models = [m.with_name(n) for m, n in zip(models, names)]
+    for other, path in zip(models[1:], args.models[1:]):
+        try:
+            from .realization import check_comparable
+
+            check_comparable(models[0], other)
+        except IncompatibleModelsError as exc:
+            raise IncompatibleModelsError(f"{path}: {exc}") from None
+    options = Options(rtol=args.rtol, escalate=args.escalation_seconds > 0,
+                      escalation_seconds=args.escalation_seconds)
+    pairs = compare_models(models, options=options)
+    verdict = overall_verdict(pairs)
+    data = compare_report(models, list(args.models), pairs, options, verdict, time.perf_counter() - start)
+    sys.stdout.write(render_json(data) if args.format == "json" else render_compare_text(data))
+    return {"equivalent": EXIT_OK, "different": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[verdict]
+
+
+def _inspect(args: argparse.Namespace) -> int:
+    from .inspection import inspect_model
+    from .loading import load_model_document, realization_from_document
+    from .report import inspect_report, render_inspect_text, render_json
+
+    doc = load_model_document(args.model)
+    r = realization_from_document(doc)
+    if not r.name:
+        r = r.with_name(os.path.basename(args.model))
+    insp = inspect_model(r, claimed_form=getattr(doc, "claimed_form", None))
+    data = inspect_report(r, args.model, insp)
+    sys.stdout.write(render_json(data) if args.format == "json" else render_inspect_text(data))
+    return {"ok": EXIT_OK, "problem": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[insp.status]
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

@@ -1,0 +1,209 @@
+"""Properties of one model: order, minimal order, stability, poles, zeros, gains,
+hidden modes, conditioning of the realization, and its claimed form.
+
+A *problem* (exit status 1 from ``lti-audit inspect``) is an unstable hidden mode or a
+claimed form the realization is not in. Stable hidden modes and poor conditioning are
+reported as notes. Rank decisions without a clear singular-value gap make the
+inspection ``inconclusive``.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+import numpy as np
+import scipy.linalg
+
+from .errors import NumericalTroubleError
+from .evidence import (
+    Evidence,
+    _jsonable,
+    complex_pairs,
+    fmt_complex,
+    minimal_order_evidence,
+    stability_label,
+)
+from .realization import Realization
+
+Status = Literal["ok", "problem", "inconclusive"]
+
+ILL_CONDITIONED = 1e8
+"""Eigenvector-matrix condition number above which a note warns that the poles of this
+realization are sensitive (common practice, no source)."""
+
+
+@dataclass(frozen=True)
+class Inspection:
+    """Result of inspecting one model."""
+
+    name: str
+    status: Status
+    problems: tuple[str, ...]
+    notes: tuple[str, ...]
+    properties: dict[str, Any]
+    evidence: tuple[Evidence, ...] = field(default=())
+    seconds: float = 0.0
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "name": self.name,
+            "status": self.status,
+            "problems": list(self.problems),
+            "notes": list(self.notes),
+            "properties": _jsonable(self.properties),
+            "evidence": [e.as_dict() for e in self.evidence],
+            "seconds": round(self.seconds, 6),
+        }
+
+
+def _gain_at(r: Realization, lam: complex) -> np.ndarray | None:
+    if r.order == 0:
+        return r.d.copy()
+    pencil = lam * np.eye(r.order) - r.a
+    # a pole at lam: the gain is infinite there (reported as None)
+    smin = np.linalg.svd(pencil, compute_uv=False)[-1]
+    if smin <= 1e-13 * max(1.0, np.linalg.norm(r.a, 2)):
+        return None
+    g = r.c @ np.linalg.solve(pencil, r.b) + r.d
+    return np.real_if_close(g, tol=1e6)
+
+
+def _conditioning(r: Realization) -> dict[str, Any]:
+    if r.order == 0:
+        return {"eigenvector_condition": 1.0, "largest_eigenvalue_condition": 1.0,
+                "balancing_norm_reduction": 1.0}
+    w, vl, vr = scipy.linalg.eig(r.a, left=True, right=True)
+    vr = vr / np.linalg.norm(vr, axis=0)
+    vl = vl / np.linalg.norm(vl, axis=0)
+    denom = np.abs(np.sum(np.conj(vl) * vr, axis=0))
+    kappa = np.where(denom > 0, 1.0 / np.maximum(denom, 1e-300), np.inf)
+    cond_v = float(np.linalg.cond(vr))
+    balanced, _ = scipy.linalg.matrix_balance(r.a, permute=False)
+    na = float(np.linalg.norm(r.a, 1))
+    nb = float(np.linalg.norm(balanced, 1))
+    return {
+        "eigenvector_condition": cond_v,
+        "largest_eigenvalue_condition": float(np.max(kappa)),
+        "balancing_norm_reduction": na / nb if nb > 0 else 1.0,
+        "norm_a": na,
+    }
+
+
+def inspect_model(r: Realization, *, claimed_form: str | None = None,
+                  rank_tol: float | None = None) -> Inspection:
+    """Inspect one model.
+
+    Parameters
+    ----------
+    r : Realization
+    claimed_form : str or None, keyword-only
+        The document's ``claimed_form``; checked when given.
+    rank_tol : float or None, keyword-only
+        Tolerance of the staircase rank decisions (default: scale-aware, see
+        :func:`audit.structure.minimal_realization`).
+
+    Returns
+    -------
+    Inspection
+    """
+    from .norms import peak_gain
+    from .structure import transmission_zeros
+
+    start = time.perf_counter()
+    label = r.name or "model"
+    ev_min, mr = minimal_order_evidence(label, r, tol=rank_tol)
+    discrete = r.is_discrete
+    poles = r.poles()
+    min_poles = mr.realization.poles()
+    try:
+        zeros = transmission_zeros(mr.realization)
+    except NumericalTroubleError:
+        zeros = np.zeros(0, dtype=complex)
+    dc = _gain_at(r, 1.0 + 0j if discrete else 0j)
+    hf = _gain_at(r, -1.0 + 0j) if discrete else r.d.copy()
+    try:
+        pk = peak_gain(mr.realization)
+        peak = {"value": float(pk.value), "frequency_rad_s": float(pk.frequency),
+                "certified": bool(getattr(pk, "certified", False))}
+    except NumericalTroubleError as exc:
+        peak = {"value": None, "note": str(exc)}
+    cond = _conditioning(r)
+    problems: list[str] = []
+    notes: list[str] = []
+    hidden = ev_min.details["hidden_modes"]
+    unstable_hidden = [h for h in hidden if h["unstable"]]
+    if unstable_hidden:
+        where = ", ".join(fmt_complex(complex(*h["location"])) + f" ({h['kind']})" for h in unstable_hidden)
+        problems.append(f"UNSTABLE HIDDEN MODE at {where}: input-output behaviour hides an "
+                        "internally unstable state")
+    elif hidden:
+        notes.append(f"{len(hidden)} stable hidden mode(s); minimal order {mr.order} of {r.order}")
+    if cond["eigenvector_condition"] > ILL_CONDITIONED:
+        notes.append(f"poles are sensitive in these coordinates: eigenvector matrix condition "
+                     f"number {cond['eigenvector_condition']:.1e}")
+    evidence = [ev_min]
+    form_info: dict[str, Any] | None = None
+    if claimed_form:
+        form_info, form_problem = _check_form(r, claimed_form)
+        if form_problem:
+            problems.append(form_problem)
+    recognised = _recognise(r)
+    status: Status = "problem" if problems else ("inconclusive" if ev_min.outcome == "unclear" else "ok")
+    if ev_min.outcome == "unclear":
+        notes.append("a staircase rank decision had no clear singular-value gap; the minimal "
+                     "order and hidden modes are uncertain")
+    properties: dict[str, Any] = {
+        "order": r.order,
+        "inputs": r.n_inputs,
+        "outputs": r.n_outputs,
+        "time_domain": "continuous" if not discrete else f"discrete, T = {r.sample_period:g} s",
+        "sample_period": r.sample_period,
+        "minimal_order": mr.order,
+        "internal_stability": stability_label(poles, discrete),
+        "input_output_stability": stability_label(min_poles, discrete),
+        "poles": complex_pairs(np.sort_complex(poles)),
+        "poles_of_minimal_part": complex_pairs(np.sort_complex(min_poles)),
+        "transmission_zeros": complex_pairs(np.sort_complex(np.asarray(zeros))),
+        "dc_gain": None if dc is None else np.asarray(dc).real.tolist(),
+        "high_frequency_gain": None if hf is None else np.asarray(hf).real.tolist(),
+        "peak_gain": peak,
+        "hidden_modes": hidden,
+        "conditioning": cond,
+        "claimed_form": form_info,
+        "recognised_forms": recognised,
+    }
+    return Inspection(
+        name=label,
+        status=status,
+        problems=tuple(problems),
+        notes=tuple(notes),
+        properties=properties,
+        evidence=tuple(evidence),
+        seconds=time.perf_counter() - start,
+    )
+
+
+def _check_form(r: Realization, claimed: str) -> tuple[dict[str, Any], str | None]:
+    try:
+        from .forms import check_claimed_form
+    except ImportError:  # pragma: no cover - forms module ships with the package
+        return {"claimed": claimed, "checked": False}, None
+    res = check_claimed_form(r, claimed)
+    info = {"claimed": claimed, "checked": True, **_jsonable(res.as_dict())}
+    if res.holds:
+        return info, None
+    devs = "; ".join(list(res.deviations)[:3])
+    return info, f"claims the {claimed} form but is not in it: {devs}"
+
+
+def _recognise(r: Realization) -> Any:
+    try:
+        from .forms import recognise_form
+    except ImportError:  # pragma: no cover
+        return None
+    try:
+        return _jsonable(recognise_form(r).as_dict())
+    except Exception:  # noqa: BLE001 - recognition is a courtesy, never fatal
+        return None

@@ -1,0 +1,834 @@
+"""Verdict: combine the evidence for a pair of models and explain it.
+
+``equivalent``
+    the decisive evidence (relative peak gain of ``G1 - G2`` over all frequencies,
+    with its numerical error) lies within the tolerance;
+``different``
+    it lies beyond the tolerance by more than its numerical error;
+``inconclusive``
+    the estimated numerical error straddles the tolerance, even after re-evaluation
+    in extended precision within the time budget.
+
+Sets of more than two models are compared pairwise against the first.
+"""
+
+from __future__ import annotations
+
+import itertools
+import time
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .errors import NumericalTroubleError
+from .evidence import (
+    DEFAULT_RTOL,
+    EPS,
+    Contour,
+    Evidence,
+    choose_contour,
+    fmt_complex,
+    frequency_to_point,
+    is_unstable_mode,
+    minimal_order_evidence,
+    skipped,
+)
+from .realization import Realization, check_comparable, difference_system
+
+Verdict = Literal["equivalent", "different", "inconclusive"]
+
+ESCALATION_SECONDS = 20.0
+"""Time budget for the extended-precision re-evaluation of one pair (documented in the
+README; the report says when it was used and whether it completed)."""
+
+SIMILARITY_MAX_ORDER = 200
+"""Above this order the state-coordinate similarity evidence is skipped (cost O(n^3)
+with large constants); it explains but never decides the verdict."""
+
+
+@dataclass(frozen=True)
+class Options:
+    """Tolerances and budgets of an audit (all documented, all overridable)."""
+
+    rtol: float = DEFAULT_RTOL
+    escalate: bool = True
+    escalation_seconds: float = ESCALATION_SECONDS
+    rank_tol: float | None = None
+
+
+@dataclass(frozen=True)
+class PairComparison:
+    """The verdict for one pair (reference, other) with its evidence and diagnosis."""
+
+    reference: str
+    other: str
+    verdict: Verdict
+    explanation: str
+    evidence: tuple[Evidence, ...]
+    diagnosis: dict[str, Any] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+    seconds: float = 0.0
+
+    def as_dict(self) -> dict[str, Any]:
+        from .evidence import _jsonable
+
+        return {
+            "reference": self.reference,
+            "other": self.other,
+            "verdict": self.verdict,
+            "explanation": self.explanation,
+            "evidence": [e.as_dict() for e in self.evidence],
+            "diagnosis": _jsonable(self.diagnosis),
+            "warnings": list(self.warnings),
+            "seconds": round(self.seconds, 6),
+        }
+
+
+# ---------------------------------------------------------------------- grid data
+@dataclass
+class _Shared:
+    """Computations shared by several pieces of evidence for one pair."""
+
+    r1: Realization
+    r2: Realization
+    contour: Contour
+    s1: Realization  # on the comparison contour
+    s2: Realization
+    grid: NDArray[np.float64]
+    g1: NDArray[np.complex128]  # (k, p, m)
+    g2: NDArray[np.complex128]
+    err1: NDArray[np.float64]  # (k,) absolute error estimates
+    err2: NDArray[np.float64]
+    peak1: Any
+    peak2: Any
+    scale: float
+    min1: Any
+    min2: Any
+
+
+def _sigma_max(g: NDArray[np.complex128]) -> NDArray[np.float64]:
+    if g.shape[1] == 1 or g.shape[2] == 1:
+        return np.sqrt(np.sum(np.abs(g) ** 2, axis=(1, 2)))
+    return np.linalg.norm(g, ord=2, axis=(1, 2))
+
+
+def _shared(r1: Realization, r2: Realization, min1: Any, min2: Any) -> _Shared:
+    from .frequency import TransferEvaluator, adaptive_frequency_grid
+    from .norms import peak_gain
+    from .structure import transmission_zeros
+
+    contour = choose_contour([r1, r2])
+    s1, s2 = contour.apply(r1), contour.apply(r2)
+    extra: list[float] = []
+    for mr in (min1, min2):
+        try:
+            z = transmission_zeros(mr.realization)
+        except NumericalTroubleError:
+            z = np.zeros(0)
+        extra.extend(_pole_frequencies(np.asarray(z), r1.sample_period))
+    grid = adaptive_frequency_grid([s1, s2, r1, r2], extra=tuple(extra))
+    ev1, ev2 = TransferEvaluator(s1), TransferEvaluator(s2)
+    pts = frequency_to_point(grid, s1)
+    g1, g2 = ev1.at(pts), ev2.at(pts)
+    err1, err2 = _as_point_errors(ev1.error_bound(pts)), _as_point_errors(ev2.error_bound(pts))
+    peak1 = peak_gain(s1)
+    peak2 = peak_gain(s2)
+    grid_peak = float(max(_sigma_max(g1).max(initial=0.0), _sigma_max(g2).max(initial=0.0)))
+    scale = max(float(peak1.value), float(peak2.value), grid_peak)
+    return _Shared(r1, r2, contour, s1, s2, grid, g1, g2, err1, err2, peak1, peak2, scale, min1, min2)
+
+
+def _as_point_errors(bound: Any) -> NDArray[np.float64]:
+    arr = np.asarray(bound, dtype=float)
+    if arr.ndim == 1:
+        return arr
+    return arr.reshape(arr.shape[0], -1).max(axis=1)
+
+
+def _pole_frequencies(points: NDArray[np.complexfloating], sample_period: float | None) -> list[float]:
+    pts = np.asarray(points, dtype=complex)
+    pts = pts[np.isfinite(pts)]
+    if sample_period is None:
+        w = np.abs(pts)
+    else:
+        nz = pts[np.abs(pts) > 0]
+        w = np.abs(np.log(nz)) / sample_period
+        w = np.minimum(w, np.pi / sample_period)
+    return [float(x) for x in w if x > 0 and np.isfinite(x)]
+
+
+# ----------------------------------------------------------------- decisive check
+def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
+    from .norms import peak_gain
+
+    start = time.perf_counter()
+    rtol = opts.rtol
+    e = difference_system(sh.s1, sh.s2)
+    peak_e = peak_gain(e)
+    diffs = _sigma_max(sh.g1 - sh.g2)
+    errs = sh.err1 + sh.err2
+    scale = sh.scale
+    grid_max_idx = int(np.argmax(diffs)) if diffs.size else 0
+    grid_max = float(diffs[grid_max_idx]) if diffs.size else 0.0
+    value_abs = max(float(peak_e.value), grid_max)
+    peak_freq = float(peak_e.frequency) if float(peak_e.value) >= grid_max else float(sh.grid[grid_max_idx])
+    err_abs = float(errs.max(initial=0.0))
+    details: dict[str, Any] = {
+        "contour": sh.contour.describe(),
+        "peak_frequency_rad_s": peak_freq,
+        "difference_peak_gain": value_abs,
+        "reference_peak_gain": scale,
+        "peak_gain_of_each_model": [float(sh.peak1.value), float(sh.peak2.value)],
+        "peak_search": {
+            "method": getattr(peak_e, "method", ""),
+            "certified": bool(getattr(peak_e, "certified", False)),
+            "lower": float(getattr(peak_e, "lower", np.nan)),
+            "upper": float(getattr(peak_e, "upper", np.nan)),
+            "note": getattr(peak_e, "note", ""),
+        },
+        "grid_points": int(sh.grid.size),
+        "estimated_rounding_error": err_abs,
+    }
+    if scale <= 0.0:
+        rel = 0.0 if value_abs <= 0.0 else float("inf")
+        rel_err = 0.0 if err_abs <= 0.0 else float("inf")
+    else:
+        rel, rel_err = value_abs / scale, err_abs / scale
+    details["relative_rounding_error"] = rel_err
+    precision = "double"
+    if rel + rel_err <= rtol:
+        outcome = "pass"
+        summary = (
+            f"the difference G1 - G2 stays below {rel:.2e} of the peak gain at every "
+            f"frequency (tolerance {rtol:.1e})"
+        )
+    elif rel - rel_err > rtol:
+        outcome = "fail"
+        summary = (
+            f"the difference G1 - G2 reaches {rel:.3g} of the peak gain at "
+            f"{peak_freq:.4g} rad/s (tolerance {rtol:.1e})"
+        )
+    else:
+        outcome = "unclear"
+        summary = (
+            f"the double-precision estimate {rel:.2e} has an estimated rounding error of "
+            f"{rel_err:.1e}, which straddles the tolerance {rtol:.1e}"
+        )
+    if outcome == "unclear" and opts.escalate:
+        outcome, summary, precision, esc = _escalate(sh, opts, diffs, errs, peak_freq, scale)
+        details["extended_precision"] = esc
+        if "relative_difference" in esc:
+            rel = float(esc["relative_difference"])
+    return Evidence(
+        key="difference_peak_gain",
+        title="Peak gain of the difference G1 - G2",
+        metric="sup over frequency of sigma_max(G1 - G2), relative to the larger peak gain "
+        "of the two models",
+        value=rel,
+        tolerance=rtol,
+        outcome=outcome,  # type: ignore[arg-type]
+        decisive=True,
+        precision=precision,
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details=details,
+    )
+
+
+def _escalate(
+    sh: _Shared,
+    opts: Options,
+    diffs: NDArray[np.float64],
+    errs: NDArray[np.float64],
+    peak_freq: float,
+    scale: float,
+) -> tuple[str, str, str, dict[str, Any]]:
+    """Re-evaluate the straddling frequencies in ball arithmetic (see audit.precision)."""
+    from .precision import DEFAULT_BITS, enclose_difference
+
+    rtol = opts.rtol
+    straddling = np.nonzero((diffs + errs) > rtol * scale)[0]
+    order = straddling[np.argsort(-(diffs[straddling] + errs[straddling]))]
+    freqs = [peak_freq] + [float(sh.grid[i]) for i in order]
+    shift = sh.contour.shift if sh.contour.shifted else None
+    try:
+        enclosures, complete = enclose_difference(
+            sh.r1, sh.r2, np.array(freqs), max_seconds=opts.escalation_seconds,
+            contour_shift=shift,
+        )
+    except NumericalTroubleError as exc:
+        return "unclear", f"extended precision failed: {exc}", "double", {"error": str(exc)}
+    precision = f"ball arithmetic, {DEFAULT_BITS} bits (python-flint) at {len(enclosures)} frequencies"
+    if not enclosures:
+        return "unclear", "extended precision ran out of time before any frequency", "double", {
+            "evaluated": 0, "needed": len(freqs)}
+    scale_hi = max(scale * (1 + 1e-6), max(e.reference_gain_high for e in enclosures))
+    scale_lo = max(min(scale, max(e.reference_gain_low for e in enclosures)), 1e-300)
+    rel_lo = np.array([e.difference_low for e in enclosures]) / scale_hi
+    rel_hi = np.array([e.difference_high for e in enclosures]) / scale_lo
+    info: dict[str, Any] = {
+        "evaluated": len(enclosures),
+        "needed": len(freqs),
+        "complete": complete,
+        "bits": DEFAULT_BITS,
+        "largest_relative_difference_enclosure": [float(rel_lo.max()), float(rel_hi.max())],
+    }
+    worst = int(np.argmax(rel_lo))
+    if rel_lo[worst] > rtol:
+        info["relative_difference"] = float(rel_lo[worst])
+        return (
+            "fail",
+            f"re-evaluated in extended precision: the difference is at least "
+            f"{rel_lo[worst]:.3g} of the peak gain at {enclosures[worst].frequency:.4g} rad/s "
+            f"(tolerance {rtol:.1e})",
+            precision,
+            info,
+        )
+    if complete and float(rel_hi.max()) <= rtol:
+        info["relative_difference"] = float(rel_hi.max())
+        return (
+            "pass",
+            f"re-evaluated in extended precision at the {len(enclosures)} frequencies where "
+            f"double precision could not decide: the difference stays below "
+            f"{rel_hi.max():.2e} of the peak gain (tolerance {rtol:.1e})",
+            precision,
+            info,
+        )
+    why = (
+        "the time budget ran out" if not complete else
+        "the extended-precision enclosure itself straddles the tolerance"
+    )
+    return (
+        "unclear",
+        f"even in extended precision the evidence cannot settle the tolerance {rtol:.1e}: {why}",
+        precision,
+        info,
+    )
+
+
+# --------------------------------------------------------------- supporting checks
+def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any]]:
+    start = time.perf_counter()
+    p, m = sh.g1.shape[1], sh.g1.shape[2]
+    scale = sh.scale if sh.scale > 0 else 1.0
+    diff = np.abs(sh.g1 - sh.g2)  # (k, p, m)
+    errs = (sh.err1 + sh.err2)[:, None, None]
+    channels = []
+    for i in range(p):
+        for j in range(m):
+            d = diff[:, i, j]
+            k = int(np.argmax(d)) if d.size else 0
+            own = float(max(np.abs(sh.g1[:, i, j]).max(initial=0), np.abs(sh.g2[:, i, j]).max(initial=0)))
+            rel = float(d[k]) / scale if d.size else 0.0
+            differs = bool(d.size and (d[k] - errs[k, 0, 0]) > opts.rtol * scale)
+            channels.append(
+                {
+                    "output": i,
+                    "input": j,
+                    "relative_difference": rel,
+                    "relative_to_channel_peak": float(d[k]) / own if own > 0 else 0.0,
+                    "at_frequency_rad_s": float(sh.grid[k]) if d.size else 0.0,
+                    "differs": differs,
+                }
+            )
+    total = _sigma_max(sh.g1 - sh.g2)
+    band = _band(sh.grid, total)
+    differing = [c for c in channels if c["differs"]]
+    worst = max(channels, key=lambda c: c["relative_difference"]) if channels else None
+    summary = (
+        f"{len(differing)} of {p * m} channel(s) differ on {sh.grid.size} frequencies"
+        if differing
+        else f"all {p * m} channel(s) agree on {sh.grid.size} frequencies"
+    )
+    if band and differing:
+        summary += f"; largest discrepancy between {band[0]:.4g} and {band[1]:.4g} rad/s"
+    ev = Evidence(
+        key="frequency_grid",
+        title="Frequency response on the adaptive grid",
+        metric="per-channel |G1 - G2| on a grid covering every pole and zero frequency, "
+        "DC and the high-frequency limit (Nyquist in discrete time)",
+        value=float(worst["relative_difference"]) if worst else 0.0,
+        tolerance=opts.rtol,
+        outcome="fail" if differing else "pass",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details={"contour": sh.contour.describe(), "channels": channels, "band_rad_s": band,
+                 "grid_range_rad_s": [float(sh.grid.min(initial=0)), float(sh.grid.max(initial=0))]},
+    )
+    return ev, {"channels": channels, "band": band}
+
+
+def _band(grid: NDArray[np.float64], values: NDArray[np.float64]) -> list[float] | None:
+    if values.size == 0 or float(values.max()) <= 0:
+        return None
+    k = int(np.argmax(values))
+    half = 0.5 * float(values[k])
+    lo = k
+    while lo > 0 and values[lo - 1] >= half:
+        lo -= 1
+    hi = k
+    while hi < values.size - 1 and values[hi + 1] >= half:
+        hi += 1
+    return [float(grid[lo]), float(grid[hi])]
+
+
+def _markov(sh: _Shared, opts: Options) -> Evidence:
+    from .markov import compare_markov_parameters
+
+    start = time.perf_counter()
+    cmp_ = compare_markov_parameters(sh.r1, sh.r2, rtol=opts.rtol)
+    outcome = {"same": "pass", "different": "fail", "unresolved": "unclear"}[cmp_.outcome]
+    if cmp_.first_differing_index is None:
+        summary = f"the first {cmp_.count} scaled Markov parameters agree"
+        if cmp_.outcome == "unresolved":
+            summary = (
+                f"the scaled Markov parameters agree up to their rounding error, which "
+                f"exceeds the tolerance for some terms (poorly conditioned sequence)"
+            )
+    else:
+        k = int(cmp_.first_differing_index)
+        summary = (
+            f"the first differing Markov parameter is term {k} "
+            f"({'D' if k == 0 else 'C A^' + str(k - 1) + ' B'})"
+        )
+    return Evidence(
+        key="markov_parameters",
+        title="Scaled Markov parameters",
+        metric="term-by-term relative difference of D, CB, CAB, ... on a frequency-scaled copy",
+        value=float(np.max(cmp_.relative_differences)) if len(cmp_.relative_differences) else 0.0,
+        tolerance=opts.rtol,
+        outcome=outcome,  # type: ignore[arg-type]
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details=cmp_.as_dict(),
+    )
+
+
+def _points_evidence(key: str, title: str, what: str, p1: NDArray[np.complexfloating],
+                     p2: NDArray[np.complexfloating]) -> Evidence:
+    from .matching import match_points
+
+    start = time.perf_counter()
+    mt = match_points(np.asarray(p1), np.asarray(p2))
+    d = mt.as_dict()
+    largest = getattr(mt, "largest_move", None)
+    unmatched = len(d.get("unmatched_first", []) or []) + len(d.get("unmatched_second", []) or [])
+    if len(p1) == 0 and len(p2) == 0:
+        summary = f"neither model has {what}"
+        value = 0.0
+    elif largest is None:
+        summary = f"{what}: nothing to match"
+        value = 0.0
+    else:
+        (a, b), dist = _largest(largest)
+        value = dist
+        summary = (
+            f"{len(p1)} vs {len(p2)} {what}; largest relative move {dist:.2e} "
+            f"({fmt_complex(a)} -> {fmt_complex(b)})"
+        )
+    if unmatched:
+        summary += f"; {unmatched} unmatched"
+    return Evidence(
+        key=key,
+        title=title,
+        metric=f"optimal assignment between the {what} of the minimal parts; relative move",
+        value=value,
+        tolerance=None,
+        outcome="info",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details=d,
+    )
+
+
+def _largest(largest: Any) -> tuple[tuple[complex, complex], float]:
+    """Normalise the matching module's `largest_move` to ((a, b), relative distance)."""
+    if isinstance(largest, dict):
+        return (complex(largest["first"]), complex(largest["second"])), float(largest["relative_distance"])
+    if hasattr(largest, "first"):
+        return (complex(largest.first), complex(largest.second)), float(largest.relative_distance)
+    (a, b), dist = largest
+    return (complex(a), complex(b)), float(dist)
+
+
+def _static_gains(sh: _Shared, opts: Options) -> Evidence:
+    from .frequency import TransferEvaluator
+
+    start = time.perf_counter()
+    r1, r2 = sh.r1, sh.r2
+    discrete = r1.is_discrete
+    scale = sh.scale if sh.scale > 0 else 1.0
+    results: dict[str, Any] = {}
+    worst = 0.0
+    failing: list[str] = []
+    points = {"dc": 1.0 + 0j if discrete else 0j}
+    if discrete:
+        points["high_frequency"] = -1.0 + 0j
+    for name, lam in points.items():
+        vals = []
+        for r in (r1, r2):
+            if r.order and np.min(np.abs(np.linalg.eigvals(r.a) - lam)) <= 1e-12 * max(1.0, np.linalg.norm(r.a, 1)):
+                vals.append(None)
+            else:
+                vals.append(TransferEvaluator(r).at(np.array([lam]))[0].real if r.order else r.d.copy())
+        if vals[0] is None or vals[1] is None:
+            results[name] = {"first": None if vals[0] is None else vals[0].tolist(),
+                             "second": None if vals[1] is None else vals[1].tolist(),
+                             "note": "infinite: a pole lies at this point"}
+            if (vals[0] is None) != (vals[1] is None):
+                failing.append(name)
+            continue
+        diff = float(np.abs(vals[0] - vals[1]).max(initial=0)) / scale
+        worst = max(worst, diff)
+        if diff > opts.rtol:
+            failing.append(name)
+        results[name] = {"first": vals[0].tolist(), "second": vals[1].tolist(), "relative_difference": diff}
+    if not discrete:
+        diff = float(np.abs(r1.d - r2.d).max(initial=0)) / scale
+        worst = max(worst, diff)
+        if diff > opts.rtol:
+            failing.append("high_frequency")
+        results["high_frequency"] = {"first": r1.d.tolist(), "second": r2.d.tolist(), "relative_difference": diff}
+    summary = (
+        "DC gain and high-frequency gain agree" if not failing
+        else f"{' and '.join(n.replace('_', '-') for n in failing)} gain differ(s)"
+    )
+    return Evidence(
+        key="static_gains",
+        title="DC gain and high-frequency gain",
+        metric="|G1 - G2| at DC (s = 0 or z = 1) and at the high-frequency limit (D, or z = -1), "
+        "relative to the peak gain",
+        value=worst,
+        tolerance=opts.rtol,
+        outcome="fail" if failing else "pass",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details=results,
+    )
+
+
+def _similarity(sh: _Shared, opts: Options) -> Evidence:
+    from .similarity import similarity_transform_between
+
+    m1, m2 = sh.min1, sh.min2
+    if m1.order != m2.order:
+        return skipped("similarity", "State-coordinate similarity",
+                       f"minimal orders differ ({m1.order} vs {m2.order}); no similarity transform exists")
+    if m1.order == 0:
+        return skipped("similarity", "State-coordinate similarity", "both models are pure gains")
+    if m1.order > SIMILARITY_MAX_ORDER:
+        return skipped("similarity", "State-coordinate similarity",
+                       f"order {m1.order} above the limit {SIMILARITY_MAX_ORDER} for this explanatory check")
+    start = time.perf_counter()
+    both_minimal = m1.order == sh.r1.order and m2.order == sh.r2.order
+    a = sh.r1 if both_minimal else m1.realization
+    b = sh.r2 if both_minimal else m2.realization
+    res = similarity_transform_between(a, b)
+    where = "the two realizations" if both_minimal else "the minimal parts"
+    if res.found:
+        summary = (
+            f"{where} are related by a change of state coordinates with cond(T) = "
+            f"{res.condition_number:.2e}"
+        )
+    else:
+        summary = f"no change of state coordinates relates {where} (residual {max(res.residual_a, res.residual_b, res.residual_c):.1e})"
+    return Evidence(
+        key="similarity",
+        title="State-coordinate similarity",
+        metric="T with A2 = T A1 T^-1, B2 = T B1, C2 = C1 T^-1: relative residuals and cond(T)",
+        value=float(res.condition_number),
+        tolerance=None,
+        outcome="info",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details={**res.as_dict(), "between": where},
+    )
+
+
+def _difference_minimal_order(sh: _Shared, opts: Options) -> Evidence:
+    from .structure import minimal_realization
+
+    start = time.perf_counter()
+    e = difference_system(sh.r1, sh.r2)
+    mr = minimal_realization(e, tol=opts.rank_tol)
+    d_small = float(np.abs(e.d).max(initial=0)) <= opts.rtol * max(sh.scale, 1e-300)
+    vanishes = mr.order == 0 and d_small
+    summary = (
+        f"the minimal part of G1 - G2 (order {e.order}) vanishes"
+        if vanishes
+        else f"the minimal part of G1 - G2 has order {mr.order} of {e.order}"
+    )
+    if not mr.decisions_clear:
+        summary += " (some rank decisions had no clear gap)"
+    return Evidence(
+        key="difference_minimal_order",
+        title="Minimal order of the difference system",
+        metric="order of the controllable and observable part of G1 - G2 (orthogonal staircase)",
+        value=float(mr.order),
+        tolerance=float(mr.tolerance) if mr.tolerance is not None else None,
+        outcome="info" if mr.decisions_clear else "unclear",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details={"order": e.order, "minimal_order": mr.order,
+                 "rank_decisions": [d.as_dict() for d in mr.decisions]},
+    )
+
+
+# ------------------------------------------------------------------- diagnosis
+def _diagnose(sh: _Shared, opts: Options, grid_info: dict[str, Any], markov: Evidence,
+              poles: Evidence, zeros: Evidence) -> dict[str, Any]:
+    diag: dict[str, Any] = {}
+    diag["differing_channels"] = [
+        {"output": c["output"], "input": c["input"], "relative_difference": c["relative_difference"]}
+        for c in grid_info["channels"] if c["differs"]
+    ]
+    diag["band_of_largest_discrepancy_rad_s"] = grid_info["band"]
+    if markov.outcome != "skipped":
+        diag["first_differing_markov_parameter"] = markov.details.get("first_differing_index")
+    perm = _permutation(sh, opts)
+    if perm is not None:
+        diag["permutation"] = perm
+    scale = _channel_scale(sh, opts)
+    if scale is not None:
+        diag["constant_scale"] = scale
+    for ev, key in ((poles, "moved_poles"), (zeros, "moved_zeros")):
+        moves = _moves(ev.details, opts)
+        if moves:
+            diag[key] = moves
+    return diag
+
+
+def _moves(details: dict[str, Any], opts: Options) -> list[dict[str, Any]]:
+    pairs = details.get("pairs") or []
+    out = []
+    for pr in pairs:
+        rel = float(pr.get("relative_distance", 0.0))
+        if rel > max(opts.rtol, 1e-9):
+            out.append(pr)
+    out.sort(key=lambda pr: -float(pr.get("relative_distance", 0.0)))
+    return out[:5]
+
+
+def _rel_grid_diff(a: NDArray[np.complex128], b: NDArray[np.complex128], scale: float) -> float:
+    return float(_sigma_max(a - b).max(initial=0.0)) / scale if scale > 0 else 0.0
+
+
+def _permutation(sh: _Shared, opts: Options) -> dict[str, Any] | None:
+    p, m = sh.g1.shape[1], sh.g1.shape[2]
+    if p * m == 1:
+        return None
+    import math
+
+    if math.factorial(p) * math.factorial(m) > 40320:
+        return None
+    tol = max(opts.rtol, 1e-9) * 10
+    best = None
+    for po in itertools.permutations(range(p)):
+        for pi in itertools.permutations(range(m)):
+            if po == tuple(range(p)) and pi == tuple(range(m)):
+                continue
+            g1p = sh.g1[:, list(po), :][:, :, list(pi)]
+            rel = _rel_grid_diff(g1p, sh.g2, sh.scale)
+            if rel <= tol and (best is None or rel < best[2]):
+                best = (po, pi, rel)
+    if best is None:
+        return None
+    po, pi, rel = best
+    return {
+        "output_order": list(po),
+        "input_order": list(pi),
+        "relative_difference_after": rel,
+        "sentence": (
+            "the second model equals the first with "
+            + ", ".join(
+                s for s in (
+                    f"outputs reordered as {list(po)}" if list(po) != list(range(p)) else "",
+                    f"inputs reordered as {list(pi)}" if list(pi) != list(range(m)) else "",
+                ) if s
+            )
+        ),
+    }
+
+
+def _channel_scale(sh: _Shared, opts: Options) -> dict[str, Any] | None:
+    """Detect a constant real factor per channel (a unit change)."""
+    p, m = sh.g1.shape[1], sh.g1.shape[2]
+    factors = np.full((p, m), np.nan)
+    tol = max(opts.rtol, 1e-9) * 10
+    for i in range(p):
+        for j in range(m):
+            a, b = sh.g1[:, i, j], sh.g2[:, i, j]
+            mag = np.abs(a)
+            if mag.max(initial=0) <= 0:
+                if np.abs(b).max(initial=0) <= tol * max(sh.scale, 1e-300):
+                    continue
+                return None
+            use = mag > 1e-6 * mag.max()
+            ratio = b[use] / a[use]
+            k = complex(np.median(ratio.real), np.median(ratio.imag))
+            if abs(k.imag) > tol * abs(k) or k.real == 0:
+                return None
+            if np.max(np.abs(b - k.real * a)) > tol * max(np.abs(b).max(), 1e-300):
+                return None
+            factors[i, j] = k.real
+    finite = factors[np.isfinite(factors)]
+    if finite.size == 0 or np.all(np.abs(finite - 1.0) <= tol):
+        return None
+    out: dict[str, Any] = {"channel_factors": [[None if not np.isfinite(v) else float(v) for v in row] for row in factors]}
+    rows = [np.unique(np.round(factors[i][np.isfinite(factors[i])], 12)) for i in range(p)]
+    cols = [np.unique(np.round(factors[:, j][np.isfinite(factors[:, j])], 12)) for j in range(m)]
+    if all(len(r) <= 1 for r in rows) and p > 0:
+        scaled = {i: float(r[0]) for i, r in enumerate(rows) if len(r) and abs(r[0] - 1) > tol}
+        out["per_output"] = scaled
+        out["sentence"] = "constant factor on " + ", ".join(
+            f"output {i} (x{v:.6g})" for i, v in scaled.items()) + ": consistent with a unit change"
+    elif all(len(c) <= 1 for c in cols) and m > 0:
+        scaled = {j: float(c[0]) for j, c in enumerate(cols) if len(c) and abs(c[0] - 1) > tol}
+        out["per_input"] = scaled
+        out["sentence"] = "constant factor on " + ", ".join(
+            f"input {j} (x{v:.6g})" for j, v in scaled.items()) + ": consistent with a unit change"
+    else:
+        out["sentence"] = "each differing channel is a constant multiple of the reference channel"
+    return out
+
+
+# --------------------------------------------------------------------- compare
+def compare_pair(
+    r1: Realization, r2: Realization, *, options: Options | None = None
+) -> PairComparison:
+    """Audit one pair of models claimed to be equivalent.
+
+    Parameters
+    ----------
+    r1, r2 : Realization
+        The reference and the model under audit.
+    options : Options, keyword-only
+        Tolerances and budgets.
+
+    Returns
+    -------
+    PairComparison
+
+    Raises
+    ------
+    IncompatibleModelsError
+        Different input/output counts, or mixed / different time domains.
+    """
+    opts = options or Options()
+    start = time.perf_counter()
+    check_comparable(r1, r2)
+    label1 = r1.name or "first model"
+    label2 = r2.name or "second model"
+    if label1 == label2:
+        label1, label2 = label1 + " (1)", label2 + " (2)"
+    ev_min1, min1 = minimal_order_evidence(label1, r1, tol=opts.rank_tol)
+    ev_min2, min2 = minimal_order_evidence(label2, r2, tol=opts.rank_tol)
+    sh = _shared(r1, r2, min1, min2)
+    decisive = _difference_peak(sh, opts)
+    grid_ev, grid_info = _frequency_grid(sh, opts)
+    markov = _markov(sh, opts)
+    from .structure import transmission_zeros
+
+    poles = _points_evidence("poles", "Poles (minimal parts)", "poles",
+                             min1.realization.poles(), min2.realization.poles())
+    zeros = _points_evidence("zeros", "Transmission zeros", "transmission zeros",
+                             transmission_zeros(min1.realization), transmission_zeros(min2.realization))
+    gains = _static_gains(sh, opts)
+    diff_order = _difference_minimal_order(sh, opts)
+    sim = _similarity(sh, opts)
+    evidence = [decisive, ev_min1, ev_min2, diff_order, grid_ev, markov, gains, poles, zeros, sim]
+    verdict: Verdict = {"pass": "equivalent", "fail": "different"}.get(decisive.outcome, "inconclusive")  # type: ignore[assignment]
+    warnings = _warnings(sh, ev_min1, ev_min2, label1, label2)
+    diagnosis: dict[str, Any] = {}
+    if verdict == "different":
+        diagnosis = _diagnose(sh, opts, grid_info, markov, poles, zeros)
+    explanation = _explain(verdict, decisive, diagnosis, warnings, label1, label2, opts)
+    return PairComparison(
+        reference=label1,
+        other=label2,
+        verdict=verdict,
+        explanation=explanation,
+        evidence=tuple(evidence),
+        diagnosis=diagnosis,
+        warnings=tuple(warnings),
+        seconds=time.perf_counter() - start,
+    )
+
+
+def _warnings(sh: _Shared, ev1: Evidence, ev2: Evidence, label1: str, label2: str) -> list[str]:
+    out: list[str] = []
+    for ev, label in ((ev1, label1), (ev2, label2)):
+        hidden = ev.details.get("hidden_modes", [])
+        unstable = [h for h in hidden if h["unstable"]]
+        if unstable:
+            where = ", ".join(fmt_complex(complex(*h["location"])) + f" ({h['kind']})" for h in unstable)
+            out.append(
+                f"UNSTABLE HIDDEN MODE in {label} at {where}: the transfer functions may agree "
+                "but internal stability does not"
+            )
+        elif hidden:
+            where = ", ".join(fmt_complex(complex(*h["location"])) for h in hidden[:6])
+            more = "" if len(hidden) <= 6 else f" and {len(hidden) - 6} more"
+            out.append(f"{label} carries {len(hidden)} stable hidden mode(s) at {where}{more}")
+        if ev.outcome == "unclear":
+            out.append(f"{label}: a rank decision of the staircase had no clear singular-value gap "
+                       f"(smallest gap {ev.details.get('smallest_gap', float('nan')):.2g}); "
+                       "its hidden-mode count is uncertain")
+    if sh.contour.shifted:
+        out.append(f"compared on the {sh.contour.describe()}")
+    return out
+
+
+def _explain(verdict: Verdict, decisive: Evidence, diagnosis: dict[str, Any], warnings: list[str],
+             label1: str, label2: str, opts: Options) -> str:
+    extended = "extended precision" if decisive.precision.startswith("ball") else "double precision"
+    if verdict == "equivalent":
+        text = (f"{label2} has the same transfer function as {label1}: {decisive.summary} "
+                f"(decided in {extended}).")
+        if any(w.startswith("UNSTABLE HIDDEN") for w in warnings):
+            text += " But an unstable hidden mode is present: internal stability differs."
+        return text
+    if verdict == "different":
+        parts = [f"{label2} does not have the same transfer function as {label1}: {decisive.summary} "
+                 f"(decided in {extended})."]
+        if "permutation" in diagnosis:
+            parts.append(diagnosis["permutation"]["sentence"].capitalize() + ".")
+        elif "constant_scale" in diagnosis:
+            parts.append(diagnosis["constant_scale"]["sentence"].capitalize() + ".")
+        elif diagnosis.get("moved_poles"):
+            mv = diagnosis["moved_poles"][0]
+            parts.append(f"Largest pole move: {mv.get('first')} -> {mv.get('second')}.")
+        return " ".join(parts)
+    return (f"Cannot tell whether {label2} and {label1} are equivalent at tolerance {opts.rtol:.1e}: "
+            f"{decisive.summary}.")
+
+
+def compare_models(models: list[Realization], *, options: Options | None = None) -> list[PairComparison]:
+    """Compare every model against the first (pairwise), returning one result per pair."""
+    if len(models) < 2:
+        raise ValueError("compare needs at least two models")
+    return [compare_pair(models[0], other, options=options) for other in models[1:]]
+
+
+def overall_verdict(pairs: list[PairComparison]) -> Verdict:
+    """``different`` if any pair differs, else ``inconclusive`` if any is, else ``equivalent``."""
+    verdicts = {p.verdict for p in pairs}
+    if "different" in verdicts:
+        return "different"
+    if "inconclusive" in verdicts:
+        return "inconclusive"
+    return "equivalent"
