@@ -11,7 +11,7 @@ import argparse
 import os
 import sys
 import time
-from typing import Sequence
+from typing import Any, Sequence
 
 EXIT_OK = 0
 EXIT_DIFFERENT = 1
@@ -70,7 +70,26 @@ def build_parser() -> argparse.ArgumentParser:
     ins = sub.add_parser("inspect", help="report one model's properties and problems")
     ins.add_argument("model", metavar="MODEL")
     ins.add_argument("--format", choices=("text", "json"), default="text")
+    for module in _command_modules():
+        sp = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
+        module.add_arguments(sp)
+        sp.set_defaults(_run=module.run)
     return parser
+
+
+def _command_modules() -> list[Any]:
+    """The sub-command modules of :mod:`audit.commands`, sorted by name."""
+    import importlib
+    import pkgutil
+
+    from . import commands
+
+    found = []
+    for info in sorted(pkgutil.iter_modules(commands.__path__), key=lambda i: i.name):
+        if info.name.startswith("_"):
+            continue
+        found.append(importlib.import_module(f"{commands.__name__}.{info.name}"))
+    return found
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -84,7 +103,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         if args.command == "compare":
             return _compare(args)
-        return _inspect(args)
+        if args.command == "inspect":
+            return _inspect(args)
+        return int(args._run(args))
     except AuditError as exc:
         sys.stderr.write(f"lti-audit: error: {exc}\n")
         return EXIT_INVALID
