@@ -56,11 +56,19 @@ def inspect_report_schema() -> dict[str, Any]:
     return {"$schema": JSON_SCHEMA_DIALECT, **InspectReport.model_json_schema()}
 
 
+def claims_manifest_schema() -> dict[str, Any]:
+    """JSON Schema of the claims manifest ``lti-audit.toml`` (the parsed TOML data)."""
+    from .manifest import claims_manifest_schema as build
+
+    return build()
+
+
 #: Registered schemas: file name under ``schemas/`` -> callable returning the schema.
 SCHEMAS: dict[str, Callable[[], dict[str, Any]]] = {
     "model-document.schema.json": model_document_schema,
     "compare-report.schema.json": compare_report_schema,
     "inspect-report.schema.json": inspect_report_schema,
+    "claims-manifest.schema.json": claims_manifest_schema,
 }
 
 

@@ -1,0 +1,143 @@
+"""``lti-audit check [MANIFEST] [--against REF]``: the pre-merge check.
+
+Runs every claim of the claims manifest (default ``lti-audit.toml`` in the current
+directory; see :mod:`audit.manifest`) and, with ``--against REF``, audits every model
+file changed between the git revision ``REF`` and the working tree (see
+:mod:`audit.gitbase`). Without a manifest file, ``--against`` uses the default file
+globs and the current directory.
+
+Output: ``--format text|json|junit|markdown`` on stdout; ``--junit FILE``,
+``--markdown FILE`` and ``--json FILE`` also write those reports (atomically, never over
+a model file). Exit status: 0 every claim holds and no changed file changed behaviour;
+1 a claim fails or a file's behaviour changed; 2 invalid input (bad manifest, missing or
+invalid model file, unknown REF) or usage; 3 otherwise inconclusive.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+NAME = "check"
+HELP = "check a claims manifest (lti-audit.toml) and, with --against REF, the model files changed since a git revision"
+
+
+def _fraction(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"--rtol must be a number, got {text!r}") from None
+    if not (0.0 < value < 1.0):
+        raise argparse.ArgumentTypeError(f"--rtol must be between 0 and 1 (exclusive), got {text}")
+    return value
+
+
+def _seconds(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
+    if not value >= 0:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds >= 0, got {text}")
+    return value
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Options of ``lti-audit check``."""
+    parser.add_argument("manifest", nargs="?", default=None, metavar="MANIFEST",
+                        help="claims manifest (TOML); default lti-audit.toml in the current "
+                        "directory")
+    parser.add_argument("--against", metavar="REF", default=None,
+                        help="also audit the model files changed between the git revision REF "
+                        "and the working tree (e.g. origin/main)")
+    parser.add_argument("--rtol", type=_fraction, default=None,
+                        help="default relative tolerance for claims without their own "
+                        "(default: the manifest's rtol, else 1e-5)")
+    parser.add_argument("--format", choices=("text", "json", "junit", "markdown"),
+                        default="text", help="what to print on stdout (default text)")
+    parser.add_argument("--junit", metavar="FILE", default=None,
+                        help="also write a JUnit XML report to FILE")
+    parser.add_argument("--markdown", metavar="FILE", default=None,
+                        help="also write a Markdown summary (merge-request comment) to FILE")
+    parser.add_argument("--json", metavar="FILE", default=None,
+                        help="also write the JSON report to FILE")
+    parser.add_argument("--escalation-seconds", type=_seconds, default=None,
+                        help="extended-precision budget per comparison (0 disables it)")
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run the check; return the exit status (see the module docstring)."""
+    from ..ci_outputs import (
+        CheckRun,
+        render_check_json,
+        render_check_text,
+        render_junit_xml,
+        render_markdown,
+        write_output,
+    )
+    from ..manifest import (
+        DEFAULT_MANIFEST_NAME,
+        default_manifest,
+        evaluate_claims,
+        load_claims_manifest,
+    )
+
+    start = time.perf_counter()
+    if args.manifest is None and args.against is not None and not Path(DEFAULT_MANIFEST_NAME).exists():
+        manifest = default_manifest(Path.cwd())
+    else:
+        path = args.manifest if args.manifest is not None else DEFAULT_MANIFEST_NAME
+        if args.manifest is None and not Path(path).exists():
+            sys.stderr.write(
+                f"lti-audit: error: {path}: manifest not found in {os.getcwd()}; name one "
+                "(lti-audit check path/to/lti-audit.toml) or use --against REF to audit "
+                "changed model files without a manifest\n")
+            return 2
+        manifest = load_claims_manifest(path)
+    claims = evaluate_claims(manifest, rtol=args.rtol, escalation_seconds=args.escalation_seconds)
+    changes: tuple[Any, ...] = ()
+    commit = None
+    skipped: tuple[str, ...] = ()
+    if args.against is not None:
+        from ..gitbase import classify_changes
+
+        changes, commit, skipped = classify_changes(
+            manifest, args.against, rtol=args.rtol, escalation_seconds=args.escalation_seconds)
+    result = CheckRun(
+        manifest=None if manifest.path is None else str(manifest.path),
+        directory=str(manifest.directory),
+        claims=claims,
+        changes=changes,
+        against=args.against,
+        against_commit=commit,
+        skipped_files=skipped,
+        rtol=args.rtol,
+        seconds=time.perf_counter() - start,
+    )
+    protected = _protected_files(manifest, claims, changes)
+    renderers = {"text": render_check_text, "json": render_check_json,
+                 "junit": render_junit_xml, "markdown": render_markdown}
+    for option, fmt in (("junit", "junit"), ("markdown", "markdown"), ("json", "json")):
+        target = getattr(args, option)
+        if target is not None:
+            write_output(target, renderers[fmt](result), protected=protected)
+    sys.stdout.write(renderers[args.format](result))
+    return result.exit_status
+
+
+def _protected_files(manifest: Any, claims: Any, changes: Any) -> list[Path]:
+    out = []
+    if manifest.path is not None:
+        out.append(Path(manifest.path))
+    for c in claims:
+        out.extend(manifest.directory / m for m in c.models)
+    for cl in manifest.content.claims:
+        if cl.discretization is not None:
+            out.append(manifest.directory / cl.discretization.of)
+    for f in changes:
+        out.append(manifest.directory / f.path)
+    return out
