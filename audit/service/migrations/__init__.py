@@ -1,0 +1,1 @@
+"""Alembic migrations of the audit service database (applied by ``db.migrate``)."""
