@@ -1,0 +1,170 @@
+"""``lti-audit stress``: a property-based stress campaign over model-conversion pipelines.
+
+Draws random systems (deterministically from ``--seed``), runs every pipeline (lti-audit's
+own conversions and forms, scipy.signal's and python-control's conversions, properties of
+the verdict), audits each result with the verdict, shrinks failures, and writes
+``campaign.json``, ``campaign.md``, ``envelope.png`` and ``counterexamples/`` to ``--out``.
+
+Exit status: 0 no pipeline failed; 1 some pipeline failed (counterexamples written);
+2 invalid usage.  The numerics live in :mod:`audit.stress`; this module only parses
+arguments, shows progress on stderr and writes files.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+NAME = "stress"
+HELP = "stress model conversions with random systems; report pass rates, envelopes, counterexamples"
+
+
+def _shard(text: str) -> tuple[int, int]:
+    try:
+        i, n = (int(x) for x in text.split("/"))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"--shard must look like i/N (e.g. 0/4), got {text!r}") from None
+    if not (n >= 1 and 0 <= i < n):
+        raise argparse.ArgumentTypeError(f"--shard i/N needs 0 <= i < N, got {text!r}")
+    return i, n
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, got {text}")
+    return value
+
+
+def _nonnegative_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 0, got {text}")
+    return value
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text}")
+    return value
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    limit = parser.add_mutually_exclusive_group()
+    limit.add_argument("--budget", type=_nonnegative_int, metavar="N",
+                       help="number of random systems of the whole campaign (default 20)")
+    limit.add_argument("--minutes", type=_positive_float, metavar="M",
+                       help="stop submitting new systems after M minutes (the set completed then "
+                       "depends on machine speed; --budget is exactly reproducible)")
+    parser.add_argument("--seed", type=_nonnegative_int, default=0, help="campaign seed (default 0)")
+    parser.add_argument("--workers", type=_positive_int, default=None, metavar="K",
+                        help="parallel worker processes (default: number of CPUs)")
+    parser.add_argument("--out", default="stress-report", metavar="DIR",
+                        help="output directory (default ./stress-report)")
+    parser.add_argument("--shard", type=_shard, default=(0, 1), metavar="i/N",
+                        help="run only the systems with index %% N == i (spread a campaign over "
+                        "N machines; merge with --merge)")
+    parser.add_argument("--pipeline", action="append", default=None, metavar="NAME",
+                        help="run only this pipeline (repeatable; see --list-pipelines)")
+    parser.add_argument("--max-order", type=_positive_int, default=None, metavar="N",
+                        help="largest order drawn (default 12)")
+    parser.add_argument("--max-spread", type=_positive_float, default=None, metavar="DECADES",
+                        help="largest pole spread drawn, in decades (default 8)")
+    parser.add_argument("--rtol", type=_positive_float, default=None,
+                        help="relative tolerance of the verdict (default 1e-5)")
+    parser.add_argument("--merge", nargs="+", default=None, metavar="SHARD_DIR",
+                        help="merge the campaign.json of shard directories into --out instead of running")
+    parser.add_argument("--list-pipelines", action="store_true", help="list the pipelines and exit")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+class _Progress:
+    """A plain-text progress bar on stderr, one line per update (CI-log friendly)."""
+
+    def __init__(self, quiet: bool, minutes: float | None) -> None:
+        self.quiet = quiet
+        self.minutes = minutes
+        self.start = time.perf_counter()
+        self.last_time = -1e9
+        self.last_step = -1
+
+    def __call__(self, done: int, planned: int | None, failures: int) -> None:
+        if self.quiet:
+            return
+        now = time.perf_counter() - self.start
+        if planned:
+            step = (20 * done) // planned
+            if step == self.last_step and now - self.last_time < 10 and done != planned:
+                return
+            bar = "#" * step + "-" * (20 - step)
+            text = f"stress: [{bar}] {done}/{planned} systems, {failures} failure(s), {now:.0f} s"
+            self.last_step = step
+        else:
+            if now - self.last_time < 5:
+                return
+            limit = f" of {60 * self.minutes:.0f} s" if self.minutes else ""
+            text = f"stress: {done} systems, {failures} failure(s), {now:.0f} s{limit}"
+        self.last_time = now
+        sys.stderr.write(text + "\n")
+        sys.stderr.flush()
+
+
+def run(args: argparse.Namespace) -> int:
+    from .. import stress
+
+    if args.list_pipelines:
+        for name, p in stress.pipelines().items():
+            sys.stdout.write(f"{name}\t{p.description}\n")
+        return 0
+    out = Path(args.out)
+    if args.merge:
+        reports = []
+        for d in args.merge:
+            path = Path(d) / "campaign.json"
+            if not path.is_file():
+                sys.stderr.write(f"lti-audit: error: --merge: {path} does not exist\n")
+                return 2
+            reports.append(json.loads(path.read_text(encoding="utf-8")))
+        merged: Any = stress.merge_campaigns(reports)
+        paths = stress.write_reports(merged, out)
+        sys.stderr.write(f"stress: merged {len(reports)} shard(s) into {paths['markdown']}\n")
+        return 1 if _failures(merged) else 0
+    settings = stress.CampaignSettings(
+        max_order=args.max_order or stress.DEFAULT_MAX_ORDER,
+        max_spread_decades=args.max_spread or stress.DEFAULT_MAX_SPREAD_DECADES,
+        rtol=args.rtol or stress.DEFAULT_RTOL,
+        pipelines=tuple(args.pipeline or ()),
+    )
+    budget = args.budget if args.budget is not None or args.minutes is not None else 20
+    workers = args.workers or stress.default_workers()
+    result = stress.run_campaign(budget=budget, minutes=args.minutes, seed=args.seed,
+                                 workers=workers, shard=args.shard, settings=settings,
+                                 progress=_Progress(args.quiet, args.minutes))
+    try:
+        paths = stress.write_reports(result, out)
+    except FileExistsError as exc:
+        sys.stderr.write(f"lti-audit: error: {exc} (use a fresh --out directory)\n")
+        return 2
+    report = result.as_dict()
+    if not args.quiet:
+        sys.stderr.write(f"stress: {report['completed_cases']} systems, {report['audits']} audits in "
+                         f"{report['seconds']:.1f} s; report {paths['markdown']}\n")
+    return 1 if _failures(report) else 0
+
+
+def _failures(report: dict[str, Any]) -> int:
+    return sum(v["counts"]["fail"] + v["counts"]["error"] for v in report["pipelines"].values())
