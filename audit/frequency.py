@@ -137,6 +137,10 @@ def boundary_points(r: Realization, omegas: ArrayLike) -> ComplexArray:
     return np.exp(1j * w * r.sample_period)
 
 
+_SCHUR_BLOCK = 32
+"""Rows per block in the blocked triangular back substitution."""
+
+
 class TransferEvaluator:
     """Evaluate ``G(lam) = C (lam I - A)^-1 B + D`` at many complex points.
 
@@ -193,6 +197,59 @@ class TransferEvaluator:
         # systems M^T y = c needed by the error estimate reuse the same solver.
         self._h_rev_t: FloatArray = np.ascontiguousarray(self._h.T[::-1, ::-1])
         self._c_rev_t: FloatArray = np.ascontiguousarray(self._c.T[::-1, :])
+        # Values are computed from the complex Schur form T = Z^H H Z of the same
+        # Hessenberg matrix (a further unitary similarity, so backward stable): T is
+        # shared by every point, so the back substitution of (lam I - T) X = B^ runs
+        # as one BLAS matrix-vector product per row across ALL points at once, where
+        # the Hessenberg elimination needs per-point pivots and elementwise work.
+        self._schur_ready = False
+
+    def _prepare_schur(self) -> None:
+        if self._schur_ready:
+            return
+        try:
+            t, z = scipy.linalg.schur(self._h, output="complex")
+        except (ValueError, np.linalg.LinAlgError) as exc:  # pragma: no cover
+            raise NumericalTroubleError(f"Schur reduction of A failed: {exc}") from exc
+        self._t: ComplexArray = np.ascontiguousarray(np.triu(t))
+        self._t_diag: ComplexArray = np.diag(self._t).copy()
+        self._bs: ComplexArray = z.conj().T @ self._b
+        self._cs: ComplexArray = self._c @ z
+        self._schur_ready = True
+
+    def _schur_values(self, lam: ComplexArray) -> ComplexArray:
+        """G at every point by back substitution on the shared triangular factor."""
+        self._prepare_schur()
+        r = self.realization
+        n, m, p = self._n, r.n_inputs, r.n_outputs
+        k = lam.shape[0]
+        out = np.empty((k, p, m), dtype=complex)
+        per = max(1, _CHUNK_ENTRIES // max(1, n * max(m, 1)))
+        t = self._t
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            for start in range(0, k, per):
+                sl = slice(start, min(k, start + per))
+                kk = sl.stop - sl.start
+                # X[j] holds row j of the solution for every point: shape (n, kk*m)
+                x = np.empty((n, kk * m), dtype=complex)
+                shift = (lam[sl][None, :] - self._t_diag[:, None])  # (n, kk)
+                # blocked back substitution: the coupling to rows already solved is
+                # one matrix-matrix product per block of rows (level-3 BLAS)
+                j1 = n
+                while j1 > 0:
+                    j0 = max(0, j1 - _SCHUR_BLOCK)
+                    rhs_block = np.repeat(self._bs[j0:j1, None, :], kk, axis=1).reshape(j1 - j0, kk * m)
+                    if j1 < n:
+                        rhs_block = rhs_block + t[j0:j1, j1:] @ x[j1:]
+                    for j in range(j1 - 1, j0 - 1, -1):
+                        rhs = rhs_block[j - j0]
+                        if j + 1 < j1:
+                            rhs = rhs + t[j, j + 1:j1] @ x[j + 1:j1]
+                        x[j] = (rhs.reshape(kk, m) / shift[j][:, None]).reshape(kk * m)
+                    j1 = j0
+                g = (self._cs @ x).reshape(p, kk, m).transpose(1, 0, 2)
+                out[sl] = g + r.d
+        return out
 
     # ------------------------------------------------------------------ core
     def _solve(
@@ -312,7 +369,10 @@ class TransferEvaluator:
             ``lam I - A`` is singular in floating point.
         """
         lam = _as_points(points, "points")
-        g, _ = self._evaluate(lam, with_errors=False)
+        if self._n == 0:
+            g, _ = self._evaluate(lam, with_errors=False)
+        else:
+            g = self._schur_values(lam)
         bad = ~np.all(np.isfinite(g.reshape(g.shape[0], -1)), axis=1)
         if np.any(bad):
             where = ", ".join(f"{complex(v):.6g}" for v in lam[bad][:5])

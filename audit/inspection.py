@@ -108,6 +108,13 @@ def inspect_model(r: Realization, *, claimed_form: str | None = None,
     -------
     Inspection
     """
+    from ._threads import limited_blas_threads
+
+    with limited_blas_threads():
+        return _inspect_model(r, claimed_form=claimed_form, rank_tol=rank_tol)
+
+
+def _inspect_model(r: Realization, *, claimed_form: str | None, rank_tol: float | None) -> Inspection:
     from .norms import peak_gain
     from .structure import transmission_zeros
 

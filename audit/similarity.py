@@ -97,7 +97,7 @@ class SimilarityResult:
     residual_c: float
     tolerance: float
     found: bool
-    method: Literal["kronecker_qr", "krylov_lsqr", "trivial"]
+    method: Literal["kronecker_qr", "krylov_lsqr", "modal", "trivial"]
     unique: bool
     note: str
 
@@ -273,6 +273,36 @@ def _lsqr_refine(
     return x.reshape((n, n), order="F")
 
 
+def _modal_route(r1: Realization, r2: Realization) -> FloatArray:
+    """T from matched eigenvector bases (O(n^3), for large diagonalisable models).
+
+    With ``A1 = V1 L V1^-1`` and ``A2 = V2 L V2^-1`` (eigenvalues matched by optimal
+    assignment), every T with ``A2 T = T A1`` is ``T = V2 diag(d) V1^-1``; the modal
+    scale factors ``d`` are fitted to ``T B1 = B2`` and ``C2 T = C1`` together by
+    least squares per mode. Uses solves, never an explicit inverse. Requires distinct
+    (well separated) eigenvalues; otherwise the residual check reports failure.
+    """
+    from .matching import match_points
+
+    w1, v1 = np.linalg.eig(r1.a)
+    w2, v2 = np.linalg.eig(r2.a)
+    matching = match_points(w1, w2)
+    order = np.empty(len(w1), dtype=int)
+    for pair in matching.pairs:
+        order[pair.first_index] = pair.second_index
+    v2 = v2[:, order]
+    x1 = np.linalg.solve(v1, r1.b.astype(complex))  # modal input coefficients
+    x2 = np.linalg.solve(v2, r2.b.astype(complex))
+    y1 = (r1.c @ v1).T  # modal output coefficients, one row per mode
+    y2 = (r2.c @ v2).T
+    num = np.sum(np.conj(x1) * x2, axis=1) + np.sum(np.conj(y2) * y1, axis=1)
+    den = np.sum(np.abs(x1) ** 2, axis=1) + np.sum(np.abs(y2) ** 2, axis=1)
+    d = num / np.where(den > 0, den, 1.0)
+    # T = V2 diag(d) V1^-1  <=>  V1^T T^T = (V2 diag(d))^T
+    t = np.linalg.solve(v1.T, (v2 * d).T).T
+    return np.real(t)
+
+
 # ------------------------------------------------------------------------ public
 def similarity_transform_between(
     r1: Realization,
@@ -280,6 +310,7 @@ def similarity_transform_between(
     *,
     rtol: float = 1e-8,
     dense_limit: int = 30,
+    lsqr_limit: int = 45,
 ) -> SimilarityResult:
     """Find ``T`` with ``A2 = T A1 T^-1``, ``B2 = T B1``, ``C2 = C1 T^-1``.
 
@@ -291,8 +322,12 @@ def similarity_transform_between(
     rtol : float, keyword-only
         ``found`` requires every relative residual ``<= rtol``.
     dense_limit : int, keyword-only
-        Largest ``n`` solved by the dense Kronecker least-squares method; above it the
-        matrix-free Krylov + LSQR route is used.
+        Largest ``n`` solved by the dense Kronecker least-squares method; above it T
+        is built from matched eigenvector bases (O(n^3)).
+    lsqr_limit : int, keyword-only
+        When the eigenvector route fails (repeated or clustered poles) and
+        ``n <= lsqr_limit``, a matrix-free Krylov + LSQR route is tried (slow:
+        O(n^4) per iteration sweep, so it is capped).
 
     Returns
     -------
@@ -356,11 +391,14 @@ def similarity_transform_between(
         with np.errstate(all="ignore"):
             if n <= dense_limit:
                 t, unique = _kronecker_solve(a1, a2, r1, r2, weights)
-                method: Literal["kronecker_qr", "krylov_lsqr", "trivial"] = "kronecker_qr"
+                method: Literal["kronecker_qr", "krylov_lsqr", "modal", "trivial"] = "kronecker_qr"
             else:
-                t = _lsqr_refine(_krylov_start(a1, a2, r1, r2), a1, a2, r1, r2, weights)
+                t = _modal_route(r1, r2)
                 unique = True  # not assessed on this route
-                method = "krylov_lsqr"
+                method = "modal"
+                if max(_residuals(r1, r2, t)) > tol and n <= lsqr_limit:
+                    t = _lsqr_refine(_krylov_start(a1, a2, r1, r2), a1, a2, r1, r2, weights)
+                    method = "krylov_lsqr"
             if not np.all(np.isfinite(t)):
                 raise NumericalTroubleError(
                     "similarity transformation: the least-squares solution is not finite"
@@ -376,6 +414,7 @@ def similarity_transform_between(
     route = (
         f"dense Kronecker least squares ({n * n} unknowns, pivoted QR + 1 refinement step)"
         if method == "kronecker_qr"
+        else f"matched eigenvector bases ({n} modes)" if method == "modal"
         else f"Krylov start + matrix-free LSQR refinement ({n * n} unknowns)"
     )
     if found:
@@ -389,7 +428,7 @@ def similarity_transform_between(
             f"is {worst[1]:.3g} ({route}); the realizations are not related by a change "
             "of state coordinates"
         )
-        if method == "krylov_lsqr":
+        if method in ("krylov_lsqr", "modal"):
             note += (
                 " -- or the iterative route did not converge (ill-conditioned T); "
                 "a larger dense_limit gives the direct method"

@@ -121,13 +121,25 @@ def test_non_unique_transform_is_flagged():
     assert "not determined uniquely" in res.note
 
 
-def test_iterative_route_for_larger_order():
+@pytest.mark.parametrize("route", ["modal", "krylov_lsqr"])
+def test_routes_for_larger_order(route):
     rng = np.random.default_rng(5)
     r1 = _random_system(rng, 35, 2, 2)
     t_true = _conditioned_transform(rng, 35, 10.0)
     r2 = similarity_transformed(r1, t_true)
-    res = similarity_transform_between(r1, r2)
-    assert res.method == "krylov_lsqr"
+    if route == "krylov_lsqr":
+        # force the iterative route: a lsqr_limit above n and a modal route that fails
+        import audit.similarity as sim
+
+        original = sim._modal_route
+        sim._modal_route = lambda a, b: np.zeros((35, 35))
+        try:
+            res = similarity_transform_between(r1, r2, lsqr_limit=40)
+        finally:
+            sim._modal_route = original
+    else:
+        res = similarity_transform_between(r1, r2)
+    assert res.method == route
     assert res.found, res.note
     err = np.linalg.norm(res.transform - t_true) / np.linalg.norm(t_true)
     assert err <= 1e-8  # drawn T; looser than the dense route (iterative LSQR)
