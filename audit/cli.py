@@ -64,6 +64,11 @@ def build_parser() -> argparse.ArgumentParser:
     cmp_.add_argument("--rtol", type=_positive_fraction, default=DEFAULT_RTOL,
                       help=f"relative tolerance on the peak gain of the difference (default {DEFAULT_RTOL:g})")
     cmp_.add_argument("--format", choices=("text", "json"), default="text")
+    cmp_.add_argument("--discretization", choices=("zoh", "foh", "tustin", "matched", "impulse"),
+                      help="relate continuous and discrete models: the continuous one is "
+                      "discretized with this method at the discrete one's period")
+    cmp_.add_argument("--prewarp", type=float, default=None, metavar="RAD_PER_S",
+                      help="prewarp frequency for --discretization tustin")
     cmp_.add_argument("--escalation-seconds", type=_nonnegative, default=ESCALATION_SECONDS,
                       help="time budget per pair for extended-precision re-evaluation "
                       f"(default {ESCALATION_SECONDS:g}; 0 disables it)")
@@ -127,7 +132,7 @@ def _compare(args: argparse.Namespace) -> int:
     from .errors import IncompatibleModelsError
     from .loading import load_realization
     from .report import compare_report, render_compare_text, render_json
-    from .verdict import Options, compare_models, overall_verdict
+    from .verdict import Options, overall_verdict
 
     if len(args.models) < 2:
         sys.stderr.write("lti-audit: error: compare needs at least two models (got 1)\n")
@@ -136,20 +141,40 @@ def _compare(args: argparse.Namespace) -> int:
     models = [load_realization(path) for path in args.models]
     names = [m.name or os.path.basename(p) for m, p in zip(models, args.models)]
     models = [m.with_name(n) for m, n in zip(models, names)]
-    for other, path in zip(models[1:], args.models[1:]):
-        try:
-            from .realization import check_comparable
-
-            check_comparable(models[0], other)
-        except IncompatibleModelsError as exc:
-            raise IncompatibleModelsError(f"{path}: {exc}") from None
     options = Options(rtol=args.rtol, escalate=args.escalation_seconds > 0,
                       escalation_seconds=args.escalation_seconds)
-    pairs = compare_models(models, options=options)
+    pairs = []
+    ref = models[0]
+    for other, path in zip(models[1:], args.models[1:]):
+        try:
+            pairs.append(_compare_one(ref, other, args, options))
+        except IncompatibleModelsError as exc:
+            raise IncompatibleModelsError(f"{path}: {exc}") from None
     verdict = overall_verdict(pairs)
     data = compare_report(models, list(args.models), pairs, options, verdict, time.perf_counter() - start)
     sys.stdout.write(render_json(data) if args.format == "json" else render_compare_text(data))
     return {"equivalent": EXIT_OK, "different": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[verdict]
+
+
+def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore[no-untyped-def]
+    from .realization import check_comparable, same_time_domain
+    from .verdict import compare_discretized, compare_pair, compare_sample_periods
+
+    if ref.is_discrete != other.is_discrete:
+        if not args.discretization:
+            check_comparable(ref, other)  # raises the mixed-domain message
+        return compare_discretized(ref, other, method=args.discretization,
+                                   prewarp_frequency=args.prewarp, options=options)
+    if args.discretization:
+        from .errors import IncompatibleModelsError
+
+        raise IncompatibleModelsError(
+            "--discretization needs one continuous-time and one discrete-time model, but "
+            f"{ref.name} and {other.name} are both "
+            + ("discrete-time" if ref.is_discrete else "continuous-time"))
+    if ref.is_discrete and not same_time_domain(ref, other):
+        return compare_sample_periods(ref, other, options=options)
+    return compare_pair(ref, other, options=options)
 
 
 def _inspect(args: argparse.Namespace) -> int:

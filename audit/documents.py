@@ -327,6 +327,33 @@ class Provenance(BaseModel):
     notes: StrictStr | None = Field(default=None, description="Free-text notes.")
 
 
+class Certificate(BaseModel):
+    """Audit of a produced realization against its source (written by ``lti-audit convert``).
+
+    Records the evidence that the new matrices describe the same system as the source
+    document, so that a reader of the converted file can see how far to trust it.
+    """
+
+    model_config = _BASE_CONFIG
+
+    source: StrictStr = Field(description="Path of the source model document as given.")
+    source_sha256: StrictStr = Field(description="SHA-256 of the source file's bytes.")
+    conversion: StrictStr = Field(description="Form produced, e.g. 'modal'.")
+    verdict: Literal["equivalent", "different", "inconclusive"] = Field(
+        description="Verdict of the audit of the new realization against the source.")
+    relative_error: float | None = Field(
+        description="Relative peak gain of (source - new) over all frequencies.")
+    tolerance: float = Field(description="Relative tolerance of that audit.")
+    transform_condition: float | None = Field(
+        description="Condition number of the state transformation (null for forms "
+        "reached by reduction).")
+    largest_eigenvalue_condition: float | None = Field(
+        default=None, description="Largest eigenvalue condition number of the new A.")
+    warnings: list[StrictStr] = Field(default_factory=list,
+                                      description="Numerical warnings of the conversion.")
+    lti_audit_version: StrictStr = Field(description="Version of lti-audit that wrote it.")
+
+
 class StateSpace(BaseModel):
     """State-space matrices ``x' = A x + B u``, ``y = C x + D u`` (or ``x[k+1] = ...``).
 
@@ -684,6 +711,9 @@ class ModelDocument(BaseModel):
     claimed_form: ClaimedForm | None = Field(
         default=None, description="Structural form the state-space matrices claim to have.")
     provenance: Provenance | None = Field(default=None, description="Origin, free text.")
+    certificate: Certificate | None = Field(
+        default=None, description="Audit of these matrices against the model they were "
+        "converted from (written by lti-audit convert).")
 
     # ----------------------------------------------------------- field validators
     @field_validator("lti_model", mode="before")

@@ -391,6 +391,8 @@ def document_from_realization(
     name: str,
     claimed_form: ClaimedForm | None = None,
     provenance: Provenance | Mapping[str, Any] | None = None,
+    certificate: Mapping[str, Any] | None = None,
+    signals: Mapping[str, Any] | None = None,
 ) -> ModelDocument:
     """A state-space model document holding a realization's matrices.
 
@@ -403,6 +405,10 @@ def document_from_realization(
     claimed_form : str, optional
         One of :data:`audit.documents.CLAIMED_FORMS`.
     provenance : Provenance or mapping with keys ``source``, ``notes``, optional
+    certificate : mapping, optional
+        A :class:`audit.documents.Certificate` as a mapping (written by ``convert``).
+    signals : mapping, optional
+        ``inputs`` / ``outputs`` lists to carry over from a source document.
 
     Returns
     -------
@@ -424,6 +430,11 @@ def document_from_realization(
     }
     if claimed_form is not None:
         data["claimed_form"] = claimed_form
+    if certificate is not None:
+        data["certificate"] = dict(certificate)
+    for key in ("inputs", "outputs"):
+        if signals is not None and signals.get(key) is not None:
+            data[key] = signals[key]
     if prov is not None:
         data["provenance"] = dict(prov) if isinstance(prov, Mapping) else prov
     return validate_model_document(data, source=f"model {name!r}" if name else "model")
@@ -442,6 +453,18 @@ def _render_json(value: Any, indent: int = 0) -> str:
         return "{\n" + ",\n".join(items) + "\n" + " " * indent + "}"
     items = [pad + _render_json(v, indent + 2) for v in value]
     return "[\n" + ",\n".join(items) + "\n" + " " * indent + "]"
+
+
+def render_model_document(doc: ModelDocument) -> str:
+    """The JSON text of a model document, as :func:`dump_model_document` writes it.
+
+    Keys in schema order, ``sample_period`` always explicit (``null`` = continuous),
+    one matrix row per line, floats written losslessly.
+    """
+    payload = doc.model_dump(mode="json", exclude_none=True)
+    payload["sample_period"] = doc.sample_period  # always explicit (null = continuous)
+    ordered = {k: payload[k] for k in ModelDocument.model_fields if k in payload}
+    return _render_json(ordered) + "\n"
 
 
 def dump_model_document(doc: ModelDocument, path: str | Path, *,
@@ -474,10 +497,7 @@ def dump_model_document(doc: ModelDocument, path: str | Path, *,
         The directory does not exist or is not writable.
     """
     target = Path(path)
-    payload = doc.model_dump(mode="json", exclude_none=True)
-    payload["sample_period"] = doc.sample_period  # always explicit (null = continuous)
-    ordered = {k: payload[k] for k in ModelDocument.model_fields if k in payload}
-    text = _render_json(ordered) + "\n"
+    text = render_model_document(doc)
     if not overwrite and target.exists():
         raise FileExistsError(f"{target}: already exists; pass overwrite=True to replace it")
     fd, tmp_name = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".tmp")

@@ -111,6 +111,7 @@ class _Shared:
     scale: float
     min1: Any
     min2: Any
+    transform: Any = None  # T between the two realizations, when recovered
 
 
 def _sigma_max(g: NDArray[np.complex128]) -> NDArray[np.float64]:
@@ -600,6 +601,7 @@ def _similarity(sh: _Shared, opts: Options) -> Evidence:
         )
     else:
         summary = f"no change of state coordinates relates {where} (residual {max(res.residual_a, res.residual_b, res.residual_c):.1e})"
+    sh.transform = res.transform if (res.found and both_minimal) else None
     return Evidence(
         key="similarity",
         title="State-coordinate similarity",
@@ -612,6 +614,55 @@ def _similarity(sh: _Shared, opts: Options) -> Evidence:
         seconds=time.perf_counter() - start,
         summary=summary,
         details={**res.as_dict(), "between": where},
+    )
+
+
+TIME_DOMAIN_MAX_ORDER = 400
+"""Above this order (either model) the explanatory time-domain check is skipped."""
+TIME_DOMAIN_POINTS = 1000
+"""Samples of the common time grid (exact ZOH marching between them)."""
+TIME_DOMAIN_INITIAL_MAX_ORDER = 20
+"""Initial-condition responses through the recovered T are compared up to this order."""
+
+
+def _time_domain(sh: _Shared, opts: Options, sim: Evidence) -> Evidence:
+    """Step and impulse responses (and initial-condition responses through T)."""
+    from .timedomain import compare_time_responses
+
+    if max(sh.r1.order, sh.r2.order) > TIME_DOMAIN_MAX_ORDER:
+        return skipped("time_responses", "Time responses",
+                       f"order above {TIME_DOMAIN_MAX_ORDER}; the frequency-domain evidence decides")
+    start = time.perf_counter()
+    # initial-condition responses (one per unit initial state) only for small models
+    transform = sh.transform if sh.r1.order <= TIME_DOMAIN_INITIAL_MAX_ORDER else None
+    try:
+        cmp_ = compare_time_responses(sh.r1, sh.r2, rtol=opts.rtol, transform=transform,
+                                      max_points=TIME_DOMAIN_POINTS)
+    except NumericalTroubleError as exc:
+        return skipped("time_responses", "Time responses", f"not computed: {exc}")
+    same = cmp_.outcome == "same"
+    kinds = ", ".join(d.kind for d in cmp_.differences)
+    summary = (
+        f"{kinds} responses over {cmp_.horizon:.4g} s agree within {cmp_.relative_peak_difference:.2e} "
+        "of their peaks" if same else
+        f"{kinds} responses differ by {cmp_.relative_peak_difference:.3g} of their peaks "
+        f"(largest at t = {cmp_.time_of_largest_difference:.4g} s)"
+    )
+    if transform is not None:
+        summary += "; initial states mapped through the recovered T"
+    return Evidence(
+        key="time_responses",
+        title="Time responses (exact for piecewise-constant inputs)",
+        metric="largest |y1 - y2| relative to the larger response peak, step and impulse "
+        "(and initial-condition responses with x2(0) = T x1(0))",
+        value=float(cmp_.relative_peak_difference),
+        tolerance=opts.rtol,
+        outcome="pass" if same else "fail",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details=cmp_.as_dict(),
     )
 
 
@@ -819,7 +870,8 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
     gains = _static_gains(sh, opts)
     diff_order = _difference_minimal_order(sh, opts)
     sim = _similarity(sh, opts)
-    evidence = [decisive, ev_min1, ev_min2, diff_order, grid_ev, markov, gains, poles, zeros, sim]
+    td = _time_domain(sh, opts, sim)
+    evidence = [decisive, ev_min1, ev_min2, diff_order, grid_ev, markov, gains, poles, zeros, sim, td]
     verdict: Verdict = {"pass": "equivalent", "fail": "different"}.get(decisive.outcome, "inconclusive")  # type: ignore[assignment]
     warnings = _warnings(sh, ev_min1, ev_min2, label1, label2)
     diagnosis: dict[str, Any] = {}
@@ -901,3 +953,117 @@ def overall_verdict(pairs: list[PairComparison]) -> Verdict:
     if "inconclusive" in verdicts:
         return "inconclusive"
     return "equivalent"
+
+
+# ------------------------------------------------------ mixed and re-sampled pairs
+def compare_discretized(
+    r1: Realization,
+    r2: Realization,
+    *,
+    method: str,
+    prewarp_frequency: float | None = None,
+    options: Options | None = None,
+) -> PairComparison:
+    """Audit a continuous and a discrete model under a declared discretization method.
+
+    The continuous one is discretized at the discrete one's period with ``method``
+    (:func:`audit.discretization.discretize`) and the two discrete models are audited
+    with :func:`compare_pair`. The claim check of
+    :func:`audit.discretization.check_discretization_claim` is added as evidence; when
+    the claim fails it names the method that does match, if any.
+
+    Raises
+    ------
+    IncompatibleModelsError
+        If both models are continuous or both discrete, or input/output counts differ.
+    InvalidModelError
+        If the method is unknown or does not apply (matched pole-zero on MIMO models).
+    """
+    from .discretization import check_discretization_claim, discretize
+    from .errors import IncompatibleModelsError
+
+    opts = options or Options()
+    if r1.is_discrete == r2.is_discrete:
+        raise IncompatibleModelsError(
+            "--discretization relates a continuous-time model to a discrete-time one, but "
+            f"{r1.name or 'the first model'} and {r2.name or 'the second model'} are both "
+            + ("discrete-time" if r1.is_discrete else "continuous-time"))
+    cont, disc = (r1, r2) if not r1.is_discrete else (r2, r1)
+    assert disc.sample_period is not None
+    period = disc.sample_period
+    sampled = discretize(cont, period, method=method, prewarp_frequency=prewarp_frequency)  # type: ignore[arg-type]
+    sampled = sampled.with_name(f"{cont.name or 'continuous model'} ({method}, T = {period:g} s)")
+    first, second = (sampled, disc) if cont is r1 else (disc, sampled)
+    pair = compare_pair(first, second, options=opts)
+    start = time.perf_counter()
+    claim = check_discretization_claim(cont, disc, method=method, prewarp_frequency=prewarp_frequency,  # type: ignore[arg-type]
+                                       rtol=opts.rtol)
+    holds = claim.outcome == "holds"
+    ev = Evidence(
+        key="discretization_claim",
+        title=f"Claim: {disc.name or 'discrete model'} is the {method} discretization of "
+              f"{cont.name or 'continuous model'}",
+        metric="relative peak difference of the frequency responses up to Nyquist, and poles",
+        value=float(claim.relative_peak_difference),
+        tolerance=opts.rtol,
+        outcome="pass" if holds else "fail",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=claim.message,
+        details=claim.as_dict(),
+    )
+    diagnosis = dict(pair.diagnosis)
+    explanation = pair.explanation
+    if not holds:
+        diagnosis["discretization"] = {"claimed": method, "matching_method": claim.matching_method,
+                                       "message": claim.message}
+        if claim.matching_method:
+            explanation += f" The matrices match a {claim.matching_method} discretization, not {method}."
+    return PairComparison(
+        reference=pair.reference, other=pair.other, verdict=pair.verdict, explanation=explanation,
+        evidence=pair.evidence + (ev,), diagnosis=diagnosis,
+        warnings=pair.warnings + (f"continuous model discretized with {method} at T = {period:g} s "
+                                  "before the audit",),
+        seconds=pair.seconds + ev.seconds,
+    )
+
+
+def compare_sample_periods(r1: Realization, r2: Realization, *, options: Options | None = None) -> PairComparison:
+    """Two discrete models labelled with different sample periods.
+
+    They cannot be the same discrete-time system, so the verdict is ``different``; the
+    evidence says whether they agree once one period is re-read (the same continuous
+    dynamics sampled at the other period, or a mislabelled period), using
+    :func:`audit.discretization.detect_sample_period_mismatch`.
+    """
+    from .discretization import detect_sample_period_mismatch
+
+    opts = options or Options()
+    start = time.perf_counter()
+    check_io = r1.n_inputs == r2.n_inputs and r1.n_outputs == r2.n_outputs
+    if not check_io:
+        check_comparable(r1, r2)  # raises the input/output message
+    chk = detect_sample_period_mismatch(r1, r2, rtol=opts.rtol)
+    label1, label2 = r1.name or "first model", r2.name or "second model"
+    assert r1.sample_period is not None and r2.sample_period is not None
+    head = (f"{label2} is sampled at T = {r2.sample_period:g} s but {label1} at "
+            f"T = {r1.sample_period:g} s")
+    if chk.outcome == "period_mismatch":
+        summary = (f"{head}; they describe the same continuous dynamics if the effective period "
+                   f"ratio is {chk.simple_ratio or format(chk.ratio, '.6g')} "
+                   f"(implied period {chk.implied_period:g} s): a mislabelled or re-sampled model")
+    elif chk.outcome == "consistent":
+        summary = f"{head}; both are consistent samplings of the same continuous dynamics"
+    else:
+        summary = f"{head}; no period ratio makes them agree ({chk.note})"
+    ev = Evidence(
+        key="sample_period", title="Sample periods", metric="labelled periods and the period ratio "
+        "under which the poles and responses agree", value=chk.ratio, tolerance=opts.rtol,
+        outcome="fail", decisive=True, precision="double", seconds=time.perf_counter() - start,
+        summary=summary, details=chk.as_dict())
+    return PairComparison(
+        reference=label1, other=label2, verdict="different",
+        explanation=f"{label2} is not the same discrete-time system as {label1}: {summary}.",
+        evidence=(ev,), diagnosis={"sample_period": chk.as_dict()}, warnings=(),
+        seconds=ev.seconds)

@@ -131,3 +131,77 @@ def test_console_script_no_traceback_and_inputs_untouched(tmp_path):
     assert "Traceback" not in proc.stderr
     assert "state_space.a" in proc.stderr
     assert bad.read_text() == text
+
+
+# ------------------------------------------------------------- issue 4 commands
+def _sampled_conveyor(tmp_path, method: str, period: float, label_period: float | None = None) -> str:
+    # independent reference discretization: scipy.signal.cont2discrete
+    import scipy.signal
+
+    doc = json.loads(Path(demo("conveyor_drive_reference.json")).read_text())
+    num = doc["transfer_function"]["numerator"][0][0]
+    den = doc["transfer_function"]["denominator"][0][0]
+    a, b, c, d = scipy.signal.tf2ss(num, den)
+    ad, bd, cd, dd, _ = scipy.signal.cont2discrete((a, b, c, d), period, method=method)
+    out = {"lti_model": 1, "name": f"sampled {method}", "sample_period": label_period or period,
+           "state_space": {"a": ad.tolist(), "b": bd.tolist(), "c": cd.tolist(), "d": dd.tolist()}}
+    path = tmp_path / f"sampled_{method}_{label_period or period}.json"
+    path.write_text(json.dumps(out))
+    return str(path)
+
+
+def test_declared_zoh_discretization_holds(capsys, tmp_path):
+    disc = _sampled_conveyor(tmp_path, "zoh", 0.01)
+    code, out, _ = run(capsys, "compare", demo("conveyor_drive_reference.json"), disc,
+                       "--discretization", "zoh")
+    assert code == 0, out
+    assert "Claim:" in out
+
+
+def test_wrong_discretization_claim_names_the_matching_method(capsys, tmp_path):
+    disc = _sampled_conveyor(tmp_path, "bilinear", 0.01)  # scipy's name for Tustin
+    code, out, _ = run(capsys, "compare", demo("conveyor_drive_reference.json"), disc,
+                       "--discretization", "zoh", "--format", "json")
+    assert code == 1
+    pair = json.loads(out)["comparisons"][0]
+    assert pair["diagnosis"]["discretization"]["matching_method"] == "tustin"
+    assert "match a tustin discretization, not zoh" in pair["explanation"]
+
+
+def test_mislabelled_sample_period_is_detected(capsys, tmp_path):
+    right = _sampled_conveyor(tmp_path, "zoh", 0.01)
+    wrong = _sampled_conveyor(tmp_path, "zoh", 0.01, label_period=0.001)
+    code, out, _ = run(capsys, "compare", right, wrong, "--format", "json")
+    assert code == 1
+    data = json.loads(out)
+    ev = data["comparisons"][0]["evidence"][0]
+    assert ev["key"] == "sample_period"
+    assert ev["details"]["outcome"] == "period_mismatch"
+
+
+def test_convert_writes_certified_form_and_never_overwrites(capsys, tmp_path):
+    out_path = tmp_path / "modal.json"
+    code, out, _ = run(capsys, "convert", demo("conveyor_drive_reference.json"), "--to", "modal",
+                       "-o", str(out_path))
+    assert code == 0
+    doc = json.loads(out_path.read_text())
+    assert doc["claimed_form"] == "modal"
+    assert doc["certificate"]["verdict"] == "equivalent"
+    assert doc["certificate"]["relative_error"] <= 1e-5
+    before = out_path.read_text()
+    code, _, err = run(capsys, "convert", demo("conveyor_drive_reference.json"), "--to", "balanced",
+                       "-o", str(out_path))
+    assert code == 2 and "never overwrites" in err
+    assert out_path.read_text() == before
+    code, out, _ = run(capsys, "inspect", str(out_path))
+    assert code == 0 and "claimed form: modal -> holds" in out
+
+
+def test_wrong_claimed_form_is_a_problem(capsys, tmp_path):
+    doc = json.loads(Path(demo("conveyor_drive_refactored.json")).read_text())
+    doc["claimed_form"] = "modal"
+    path = tmp_path / "claims_modal.json"
+    path.write_text(json.dumps(doc))
+    code, out, _ = run(capsys, "inspect", str(path))
+    assert code == 1
+    assert "claims the modal form but is not in it" in out

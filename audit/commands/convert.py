@@ -1,0 +1,127 @@
+"""``lti-audit convert MODEL --to FORM [-o OUT]``: produce a structured realization.
+
+The new realization is audited against the source before anything is written; the
+written document carries ``claimed_form`` and a ``certificate`` (verdict, relative
+error, cond(T), warnings). A conversion that does not reproduce the source within the
+tolerance is not written (exit 1). An existing output file is never overwritten.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+NAME = "convert"
+HELP = "produce a structured form of a model, audited against the source"
+
+FORM_NAMES = (
+    "controllable_companion",
+    "observable_companion",
+    "modal",
+    "jordan",
+    "balanced",
+    "kalman",
+    "staircase",
+)
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("model", metavar="MODEL", help="source model document")
+    parser.add_argument("--to", dest="form", required=True, choices=FORM_NAMES,
+                        help="form to produce")
+    parser.add_argument("-o", "--output", metavar="OUT",
+                        help="write the new model document here (refuses to overwrite); "
+                        "default: print it on stdout")
+    parser.add_argument("--rtol", type=float, default=None,
+                        help="tolerance of the audit of the new realization (default: "
+                        "the compare default)")
+    parser.add_argument("--name", help="name of the new document (default: source name + form)")
+
+
+def run(args: argparse.Namespace) -> int:
+    import hashlib
+    import os
+
+    from ..errors import InvalidModelError
+    from ..evidence import DEFAULT_RTOL
+    from ..forms import FORMS
+    from ..loading import (
+        document_from_realization,
+        dump_model_document,
+        load_model_document,
+        realization_from_document,
+        render_model_document,
+    )
+    from ..report import CAUTION, package_version
+    from ..verdict import Options, compare_pair
+
+    rtol = DEFAULT_RTOL if args.rtol is None else float(args.rtol)
+    if not (0.0 < rtol < 1.0):
+        raise InvalidModelError(f"--rtol must be between 0 and 1 (exclusive), got {args.rtol}")
+    if args.output and os.path.exists(args.output):
+        raise InvalidModelError(f"{args.output}: exists already; lti-audit never overwrites a "
+                                "file (choose another -o path or remove it first)")
+    doc = load_model_document(args.model)
+    source = realization_from_document(doc)
+    source = source.with_name(doc.name)
+    conversion = FORMS[args.form](source)
+    new = conversion.realization.with_name(args.name or f"{doc.name} ({args.form} form)")
+    pair = compare_pair(source, new, options=Options(rtol=rtol))
+    decisive = next(e for e in pair.evidence if e.decisive)
+    with open(args.model, "rb") as fh:
+        digest = hashlib.sha256(fh.read()).hexdigest()
+    eig_conds = [float(c) for c in getattr(conversion, "eigenvalue_condition_numbers", ()) or ()]
+    certificate = {
+        "source": args.model,
+        "source_sha256": digest,
+        "conversion": args.form,
+        "verdict": pair.verdict,
+        "relative_error": None if decisive.value is None else float(decisive.value),
+        "tolerance": rtol,
+        "transform_condition": None if conversion.transform_condition is None
+        else float(conversion.transform_condition),
+        "largest_eigenvalue_condition": max(eig_conds) if eig_conds else None,
+        "warnings": list(conversion.warnings),
+        "lti_audit_version": package_version(),
+    }
+    lines = [
+        f"lti-audit convert: {args.form} form of {doc.name}: {pair.verdict.upper()} "
+        f"(relative error {decisive.value:.2e}, tolerance {rtol:.1e})",
+    ]
+    if conversion.transform_condition is not None:
+        lines.append(f"  cond(T) = {conversion.transform_condition:.3e}")
+    if eig_conds:
+        lines.append(f"  largest eigenvalue condition number = {max(eig_conds):.3e}")
+    for warning in conversion.warnings:
+        lines.append(f"  warning: {warning}")
+    if pair.verdict != "equivalent":
+        lines.append(f"  not written: {pair.explanation}")
+        lines.append(CAUTION)
+        sys.stderr.write("\n".join(lines) + "\n")
+        return 1 if pair.verdict == "different" else 3
+    signals = {"inputs": [s.model_dump() for s in doc.inputs] if doc.inputs else None,
+               "outputs": [s.model_dump() for s in doc.outputs] if doc.outputs else None}
+    new_doc = document_from_realization(
+        new,
+        name=new.name,
+        claimed_form=args.form,  # type: ignore[arg-type]
+        provenance={"source": args.model, "notes": f"lti-audit convert --to {args.form}"},
+        certificate=certificate,
+        signals=signals,
+    )
+    if args.output:
+        try:
+            dump_model_document(new_doc, args.output)
+        except FileExistsError:
+            raise InvalidModelError(f"{args.output}: exists already; lti-audit never "
+                                    "overwrites a file") from None
+        except OSError as exc:
+            raise InvalidModelError(f"{args.output}: cannot write ({exc.strerror})") from None
+        lines.append(f"  written to {args.output}")
+        lines.append(CAUTION)
+        sys.stdout.write("\n".join(lines) + "\n")
+    else:
+        sys.stdout.write(render_model_document(new_doc))
+        lines.append(CAUTION)
+        sys.stderr.write("\n".join(lines) + "\n")
+    return 0
