@@ -63,7 +63,11 @@ def build_parser() -> argparse.ArgumentParser:
     cmp_.add_argument("models", nargs="+", metavar="MODEL", help="model documents (JSON, YAML, TOML or .npz)")
     cmp_.add_argument("--rtol", type=_positive_fraction, default=DEFAULT_RTOL,
                       help=f"relative tolerance on the peak gain of the difference (default {DEFAULT_RTOL:g})")
-    cmp_.add_argument("--format", choices=("text", "json"), default="text")
+    cmp_.add_argument("--format", choices=("text", "json", "html"), default="text",
+                      help="report format (html needs -o and models in one time domain)")
+    cmp_.add_argument("-o", "--output", metavar="FILE",
+                      help="write the report to FILE (never overwrites) and print a one-line "
+                      "summary")
     cmp_.add_argument("--discretization", choices=("zoh", "foh", "tustin", "matched", "impulse"),
                       help="relate continuous and discrete models: the continuous one is "
                       "discretized with this method at the discrete one's period")
@@ -137,6 +141,13 @@ def _compare(args: argparse.Namespace) -> int:
     if len(args.models) < 2:
         sys.stderr.write("lti-audit: error: compare needs at least two models (got 1)\n")
         return EXIT_INVALID
+    if args.format == "html" and not args.output:
+        sys.stderr.write("lti-audit: error: --format html needs -o FILE\n")
+        return EXIT_INVALID
+    if args.output and os.path.exists(args.output):
+        sys.stderr.write(f"lti-audit: error: {args.output}: exists already; lti-audit never "
+                         "overwrites a file\n")
+        return EXIT_INVALID
     start = time.perf_counter()
     models = [load_realization(path) for path in args.models]
     names = [m.name or os.path.basename(p) for m, p in zip(models, args.models)]
@@ -152,8 +163,41 @@ def _compare(args: argparse.Namespace) -> int:
             raise IncompatibleModelsError(f"{path}: {exc}") from None
     verdict = overall_verdict(pairs)
     data = compare_report(models, list(args.models), pairs, options, verdict, time.perf_counter() - start)
-    sys.stdout.write(render_json(data) if args.format == "json" else render_compare_text(data))
+    if args.format == "html":
+        from .html_report import render_compare_html
+
+        text = render_compare_html(data, models)
+    else:
+        text = render_json(data) if args.format == "json" else render_compare_text(data)
+    if args.output:
+        _write_new_file(args.output, text)
+        sys.stdout.write(f"lti-audit compare: {verdict.upper()}; report written to {args.output}\n")
+    else:
+        sys.stdout.write(text)
     return {"equivalent": EXIT_OK, "different": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[verdict]
+
+
+def _write_new_file(path: str, text: str) -> None:
+    """Write ``text`` to a new file atomically; never replace an existing file."""
+    import tempfile
+
+    from .errors import InvalidModelError
+
+    directory = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(dir=directory, prefix=".lti-audit-", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as handle:
+            handle.write(text)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp creates 0600; give the usual mode
+        os.link(tmp, path)  # fails if path exists: no clobbering, even in a race
+    except FileExistsError:
+        raise InvalidModelError(f"{path}: exists already; lti-audit never overwrites a file") from None
+    except OSError as exc:
+        raise InvalidModelError(f"{path}: cannot write ({exc.strerror})") from None
+    finally:
+        os.unlink(tmp)
 
 
 def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore[no-untyped-def]

@@ -226,34 +226,26 @@ __all__ = [
 
 
 # ----------------------------------------------------------------------- builders
-def _stable_label(poles: NDArray[np.complexfloating], discrete: bool) -> str:
-    if poles.size == 0:
-        return "stable"
-    if discrete:
-        mags = np.abs(poles)
-        if np.all(mags < 1 - BOUNDARY_RTOL * 1e3):
-            return "stable"
-        if np.any(mags > 1 + BOUNDARY_RTOL * 1e3):
-            return "unstable"
-        return "marginal"
-    scale = np.maximum(np.abs(poles), 1.0)
-    if np.all(poles.real < -BOUNDARY_RTOL * scale):
-        return "stable"
-    if np.any(poles.real > BOUNDARY_RTOL * scale):
-        return "unstable"
-    return "marginal"
-
-
 def stability_label(poles: NDArray[np.complexfloating], discrete: bool) -> str:
-    """``"stable"``, ``"marginal"`` or ``"unstable"`` for a set of poles."""
-    return _stable_label(np.asarray(poles, dtype=complex), discrete)
+    """``"stable"``, ``"marginal"`` or ``"unstable"`` for a set of poles.
+
+    One rule for the whole project: :func:`audit.structure.mode_stability` per mode;
+    the set is unstable if any mode is, else marginal if any mode is.
+    """
+    from .structure import mode_stability
+
+    labels = {mode_stability(complex(p), discrete=discrete) for p in np.asarray(poles).ravel()}
+    if "unstable" in labels:
+        return "unstable"
+    return "marginal" if "marginal" in labels else "stable"
 
 
 def is_unstable_mode(p: complex, discrete: bool) -> bool:
-    """True for a mode on or beyond the stability boundary (marginal counts)."""
-    if discrete:
-        return bool(abs(p) >= 1 - BOUNDARY_RTOL * 1e3)
-    return bool(p.real >= -BOUNDARY_RTOL * max(abs(p), 1.0))
+    """True for a mode on or beyond the stability boundary (marginal counts), by
+    :func:`audit.structure.mode_stability`."""
+    from .structure import mode_stability
+
+    return mode_stability(complex(p), discrete=discrete) != "stable"
 
 
 def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = None) -> tuple[Evidence, Any]:

@@ -205,3 +205,15 @@ def test_wrong_claimed_form_is_a_problem(capsys, tmp_path):
     code, out, _ = run(capsys, "inspect", str(path))
     assert code == 1
     assert "claims the modal form but is not in it" in out
+
+
+def test_html_report_is_written_once(capsys, tmp_path):
+    out_path = tmp_path / "report.html"
+    code, out, _ = run(capsys, "compare", demo("conveyor_drive_reference.json"),
+                       demo("conveyor_drive_gain_slip.json"), "--format", "html", "-o", str(out_path))
+    assert code == 1 and "report written" in out
+    page = out_path.read_text()
+    assert 'id="plot-bode-magnitude"' in page and "Caution:" in page
+    code, _, err = run(capsys, "compare", demo("conveyor_drive_reference.json"),
+                       demo("conveyor_drive_gain_slip.json"), "--format", "html", "-o", str(out_path))
+    assert code == 2 and "never overwrites" in err
