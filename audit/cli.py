@@ -27,27 +27,8 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(EXIT_INVALID)
 
 
-def _positive_fraction(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"--rtol must be a number, got {text!r}") from None
-    if not (0.0 < value < 1.0):
-        raise argparse.ArgumentTypeError(f"--rtol must be between 0 and 1 (exclusive), got {text}")
-    return value
-
-
-def _nonnegative(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds >= 0, got {text}")
-    return value
-
-
 def build_parser() -> argparse.ArgumentParser:
+    from .commands._options import relative_tolerance, seconds
     from .evidence import DEFAULT_RTOL
     from .verdict import ESCALATION_SECONDS
 
@@ -61,7 +42,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     cmp_ = sub.add_parser("compare", help="audit a set of claimed-equivalent models (pairwise against the first)")
     cmp_.add_argument("models", nargs="+", metavar="MODEL", help="model documents (JSON, YAML, TOML or .npz)")
-    cmp_.add_argument("--rtol", type=_positive_fraction, default=DEFAULT_RTOL,
+    cmp_.add_argument("--rtol", type=relative_tolerance, default=DEFAULT_RTOL,
                       help=f"relative tolerance on the peak gain of the difference (default {DEFAULT_RTOL:g})")
     cmp_.add_argument("--format", choices=("text", "json", "html"), default="text",
                       help="report format (html needs -o and models in one time domain)")
@@ -73,7 +54,7 @@ def build_parser() -> argparse.ArgumentParser:
                       "discretized with this method at the discrete one's period")
     cmp_.add_argument("--prewarp", type=float, default=None, metavar="RAD_PER_S",
                       help="prewarp frequency for --discretization tustin")
-    cmp_.add_argument("--escalation-seconds", type=_nonnegative, default=ESCALATION_SECONDS,
+    cmp_.add_argument("--escalation-seconds", type=seconds, default=ESCALATION_SECONDS,
                       help="time budget per pair for extended-precision re-evaluation "
                       f"(default {ESCALATION_SECONDS:g}; 0 disables it)")
     ins = sub.add_parser("inspect", help="report one model's properties and problems")

@@ -217,3 +217,10 @@ def test_html_report_is_written_once(capsys, tmp_path):
     code, _, err = run(capsys, "compare", demo("conveyor_drive_reference.json"),
                        demo("conveyor_drive_gain_slip.json"), "--format", "html", "-o", str(out_path))
     assert code == 2 and "never overwrites" in err
+
+
+def test_convert_offers_exactly_the_claimable_forms():
+    from audit.commands.convert import FORM_NAMES
+    from audit.documents import CLAIMED_FORMS
+
+    assert tuple(FORM_NAMES) == tuple(CLAIMED_FORMS)

@@ -22,28 +22,10 @@ import time
 from pathlib import Path
 from typing import Any
 
+from ._options import relative_tolerance, seconds
+
 NAME = "check"
 HELP = "check a claims manifest (lti-audit.toml) and, with --against REF, the model files changed since a git revision"
-
-
-def _fraction(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"--rtol must be a number, got {text!r}") from None
-    if not (0.0 < value < 1.0):
-        raise argparse.ArgumentTypeError(f"--rtol must be between 0 and 1 (exclusive), got {text}")
-    return value
-
-
-def _seconds(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
-    if not value >= 0:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds >= 0, got {text}")
-    return value
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -54,7 +36,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--against", metavar="REF", default=None,
                         help="also audit the model files changed between the git revision REF "
                         "and the working tree (e.g. origin/main)")
-    parser.add_argument("--rtol", type=_fraction, default=None,
+    parser.add_argument("--rtol", type=relative_tolerance, default=None,
                         help="default relative tolerance for claims without their own "
                         "(default: the manifest's rtol, else 1e-5)")
     parser.add_argument("--format", choices=("text", "json", "junit", "markdown"),
@@ -65,7 +47,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="also write a Markdown summary (merge-request comment) to FILE")
     parser.add_argument("--json", metavar="FILE", default=None,
                         help="also write the JSON report to FILE")
-    parser.add_argument("--escalation-seconds", type=_seconds, default=None,
+    parser.add_argument("--escalation-seconds", type=seconds, default=None,
                         help="extended-precision budget per comparison (0 disables it)")
 
 

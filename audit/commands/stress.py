@@ -19,6 +19,8 @@ import time
 from pathlib import Path
 from typing import Any
 
+from ._options import whole_number
+
 NAME = "stress"
 HELP = "stress model conversions with random systems; report pass rates, envelopes, counterexamples"
 
@@ -33,26 +35,6 @@ def _shard(text: str) -> tuple[int, int]:
     return i, n
 
 
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, got {text}")
-    return value
-
-
-def _nonnegative_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a whole number >= 0, got {text}")
-    return value
-
-
 def _positive_float(text: str) -> float:
     try:
         value = float(text)
@@ -65,13 +47,13 @@ def _positive_float(text: str) -> float:
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     limit = parser.add_mutually_exclusive_group()
-    limit.add_argument("--budget", type=_nonnegative_int, metavar="N",
+    limit.add_argument("--budget", type=whole_number(0), metavar="N",
                        help="number of random systems of the whole campaign (default 20)")
     limit.add_argument("--minutes", type=_positive_float, metavar="M",
                        help="stop submitting new systems after M minutes (the set completed then "
                        "depends on machine speed; --budget is exactly reproducible)")
-    parser.add_argument("--seed", type=_nonnegative_int, default=0, help="campaign seed (default 0)")
-    parser.add_argument("--workers", type=_positive_int, default=None, metavar="K",
+    parser.add_argument("--seed", type=whole_number(0), default=0, help="campaign seed (default 0)")
+    parser.add_argument("--workers", type=whole_number(1), default=None, metavar="K",
                         help="parallel worker processes (default: number of CPUs)")
     parser.add_argument("--out", default="stress-report", metavar="DIR",
                         help="output directory (default ./stress-report)")
@@ -80,7 +62,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         "N machines; merge with --merge)")
     parser.add_argument("--pipeline", action="append", default=None, metavar="NAME",
                         help="run only this pipeline (repeatable; see --list-pipelines)")
-    parser.add_argument("--max-order", type=_positive_int, default=None, metavar="N",
+    parser.add_argument("--max-order", type=whole_number(1), default=None, metavar="N",
                         help="largest order drawn (default 12)")
     parser.add_argument("--max-spread", type=_positive_float, default=None, metavar="DECADES",
                         help="largest pole spread drawn, in decades (default 8)")
