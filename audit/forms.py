@@ -59,7 +59,7 @@ import scipy.linalg as sla
 from numpy.typing import NDArray
 from scipy.linalg import lapack
 
-from .errors import InvalidModelError, NumericalTroubleError
+from .errors import AuditError, InvalidModelError, NumericalTroubleError
 from .realization import Realization
 
 FloatArray = NDArray[np.float64]
@@ -580,6 +580,79 @@ def controllable_companion_form(
         return _identity_conversion("controllable_companion", r)
     _require(r.a, r.b, rank_rtol=rank_rtol, what="controllable",
              form="controllable companion form", discrete=r.is_discrete)
+    try:
+        krylov = _krylov_controllable_companion(r, rank_rtol=rank_rtol,
+                                                max_response_error=max_response_error)
+    except NumericalTroubleError:
+        if r.n_inputs != 1:
+            raise
+        krylov = None
+    if r.n_inputs == 1:
+        poly = _polynomial_controllable_companion(r)
+        if poly is not None and (krylov is None or poly.details["response_discrepancy"]
+                                 < krylov.details["response_discrepancy"]):
+            if poly.details["response_discrepancy"] > max_response_error:
+                raise NumericalTroubleError(
+                    f"controllable companion form of order {r.order}: neither the Krylov "
+                    "transformation nor the characteristic-polynomial route reproduces the "
+                    f"model (relative response difference {poly.details['response_discrepancy']:.1e} "
+                    f"> max_response_error={max_response_error:g}); the companion coefficients "
+                    "cannot represent this model in double precision; use modal_form or "
+                    "balanced_form")
+            return poly
+    assert krylov is not None
+    return krylov
+
+
+def _polynomial_controllable_companion(r: Realization) -> FormConversion | None:
+    """Single-input companion form from the characteristic polynomial (no Krylov basis).
+
+    ``det(sI - A)`` comes from the eigenvalues, and the numerator of output i from the
+    identity ``det(sI - A + B c_i) = det(sI - A) (1 + c_i (sI - A)^-1 B)`` (common
+    practice, e.g. Kailath, Linear Systems, 1980 -- from memory), so
+    ``num_i = det(sI - A + B c_i) - det(sI - A)``. The transformation to report cond(T)
+    is recovered afterwards by :func:`audit.similarity.similarity_transform_between`.
+    Better than the Krylov route when the controllability matrix is badly conditioned
+    (poles spread over decades, orders of 20 and more).
+    """
+    from .similarity import similarity_transform_between
+
+    n = r.order
+    with np.errstate(all="ignore"):
+        den = np.real(np.poly(np.linalg.eigvals(r.a)))
+        rows = []
+        for i in range(r.n_outputs):
+            shifted = np.real(np.poly(np.linalg.eigvals(r.a - r.b @ r.c[i:i + 1, :])))
+            num = shifted - den  # degree <= n-1: leading entry is 0 up to rounding
+            rows.append(num[1:][::-1])  # ascending powers c_0 .. c_(n-1)
+    if not (np.all(np.isfinite(den)) and all(np.all(np.isfinite(x)) for x in rows)):
+        return None
+    a_new = np.zeros((n, n))
+    a_new[:-1, 1:] = np.eye(n - 1)
+    a_new[-1, :] = -den[1:][::-1]
+    b_new = np.zeros((n, 1))
+    b_new[-1, 0] = 1.0
+    c_new = np.array(rows)
+    new = r.with_matrices(a_new, b_new, c_new)
+    t: FloatArray | None = None
+    info: dict[str, Any] = {"controllability_indices": [n], "block_ends": [n - 1],
+                            "route": "characteristic polynomial",
+                            "variant": "coefficients in last row, ones on superdiagonal, B = e_n"}
+    try:
+        sim = similarity_transform_between(r, new, rtol=1e-6)
+        if sim.found:
+            t = np.array(sim.transform)
+        else:
+            info["transform_note"] = sim.note
+    except AuditError as exc:
+        info["transform_note"] = str(exc)
+    return _finish("controllable_companion", new, t, [], info, source=r)
+
+
+def _krylov_controllable_companion(
+    r: Realization, *, rank_rtol: float, max_response_error: float
+) -> FormConversion:
+    """Companion form through the (Luenberger) Krylov basis; see the public function."""
     t, indices, ends, info = _luenberger_controllable(r.a, r.b, rank_rtol=rank_rtol)
     a_new, b_new, c_new = _apply(r, t)
     if not (np.all(np.isfinite(a_new)) and np.all(np.isfinite(b_new))):
@@ -601,7 +674,7 @@ def controllable_companion_form(
     nb = max(float(np.linalg.norm(b_new)), _TINY)
     residual = max(float(np.abs(a_new - a_clean).max()) / max(na, 1.0),
                    float(np.abs(b_new - b_clean).max()) / max(nb, 1.0))
-    info.update({"block_ends": ends, "structure_residual": residual,
+    info.update({"block_ends": ends, "structure_residual": residual, "route": "Krylov basis",
                  "variant": "coefficients in last row of each block, ones on superdiagonal, "
                             "B = e_n per block"})
     new = r.with_matrices(a_clean, b_clean, c_new)
@@ -681,10 +754,11 @@ def observable_companion_form(
         raise NumericalTroubleError(str(exc).replace("controllable", "observable")) from exc
     rd = dual.realization
     new = r.with_matrices(rd.a.T, rd.c.T, rd.b.T)
-    assert dual.transform is not None
     # Dual: A_c = Td A^T Td^-1  =>  A_o = A_c^T = Td^-T A Td^T, so T_o = Td^-T.
-    # T_o is needed for the report only; it is obtained with a solve.
-    t_o = np.linalg.solve(dual.transform.T, np.eye(r.order))
+    # T_o is needed for the report only; it is obtained with a solve. (The polynomial
+    # route may leave T unknown when it cannot be recovered; then it stays None.)
+    t_o = (None if dual.transform is None
+           else np.linalg.solve(dual.transform.T, np.eye(r.order)))
     details = dict(dual.details)
     details["observability_indices"] = details.pop("controllability_indices")
     details["variant"] = ("coefficients in last column of each block, ones on subdiagonal, "
@@ -1062,6 +1136,19 @@ def jordan_form(
     s0, _ = sla.schur(r.a, output="real")
     upper = [_block_eig(s0, *b) for b in _schur_blocks(np.asarray(s0))]
     groups = _cluster(upper, cluster_tol, floor=1e-3 * norm_a)
+    if all(len(g) == 1 for g in groups):
+        # every pole is distinct within cluster_tol: all Jordan blocks have size 1 and
+        # the real Jordan form is the modal form (no chain computation needed, which
+        # for poles spread over decades would misjudge ranks relative to ||A||)
+        conv = modal_form(r)
+        details = dict(conv.details)
+        details.update({"jordan_blocks": [{"pole": complex(p), "size": 1} for p in upper],
+                        "cluster_tol": cluster_tol,
+                        "note": "all poles distinct within cluster_tol: the real Jordan form "
+                                "equals the modal form"})
+        return FormConversion("jordan", conv.realization, conv.transform,
+                              conv.transform_condition, conv.eigenvalue_condition_numbers,
+                              (fragile,) + tuple(conv.warnings), details)
     centres = []
     for g in groups:
         vals = [upper[i] for i in g]

@@ -208,7 +208,10 @@ class TransferEvaluator:
         if self._schur_ready:
             return
         try:
-            t, z = scipy.linalg.schur(self._h, output="complex")
+            # real Schur form then its complex equivalent: about twice as fast as a
+            # complex QR iteration, with the same backward stability
+            t_real, z_real = scipy.linalg.schur(self._h, output="real")
+            t, z = scipy.linalg.rsf2csf(t_real, z_real)
         except (ValueError, np.linalg.LinAlgError) as exc:  # pragma: no cover
             raise NumericalTroubleError(f"Schur reduction of A failed: {exc}") from exc
         self._t: ComplexArray = np.ascontiguousarray(np.triu(t))
@@ -470,7 +473,10 @@ def frequency_response(r: Realization, omegas: ArrayLike) -> ComplexArray:
     >>> round(float(abs(frequency_response(r, [1.0])[0, 0, 0])) ** 2, 12)
     0.5
     """
-    return TransferEvaluator(r).at(boundary_points(r, omegas))
+    from ._threads import limited_blas_threads
+
+    with limited_blas_threads():  # see audit._threads: threads only add contention here
+        return TransferEvaluator(r).at(boundary_points(r, omegas))
 
 
 def _mode_frequencies(
