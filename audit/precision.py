@@ -13,6 +13,7 @@ frequency evaluated, not an estimate.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -96,6 +97,7 @@ def enclose_difference(
     bits: int = DEFAULT_BITS,
     max_seconds: float = 20.0,
     contour_shift: float | None = None,
+    stop: Callable[[EnclosedDifference], bool] | None = None,
 ) -> tuple[list[EnclosedDifference], bool]:
     """Evaluate ``σ_max(G1(λ) - G2(λ))`` in ball arithmetic at each frequency.
 
@@ -114,6 +116,10 @@ def enclose_difference(
         ``λ = ρ exp(jωT)`` (discrete, ρ given) instead of the boundary itself. The
         shift is applied to λ, never to the stored matrices, so the models evaluated
         are exactly the ones handed in.
+    stop : callable, keyword-only
+        Called with each enclosure; when it returns True the evaluation ends early (the
+        caller has its answer, e.g. a proven difference). The result then counts as
+        complete.
 
     Returns
     -------
@@ -151,15 +157,16 @@ def enclose_difference(
             diff_lo, diff_hi = _ball_spectral_norm(flint, g1 - g2)
             a_lo, a_hi = _ball_spectral_norm(flint, g1)
             b_lo, b_hi = _ball_spectral_norm(flint, g2)
-            out.append(
-                EnclosedDifference(
-                    frequency=float(omega),
-                    difference_low=diff_lo,
-                    difference_high=diff_hi,
-                    reference_gain_low=max(a_lo, b_lo),
-                    reference_gain_high=max(a_hi, b_hi),
-                )
+            enclosure = EnclosedDifference(
+                frequency=float(omega),
+                difference_low=diff_lo,
+                difference_high=diff_hi,
+                reference_gain_low=max(a_lo, b_lo),
+                reference_gain_high=max(a_hi, b_hi),
             )
+            out.append(enclosure)
+            if stop is not None and stop(enclosure):
+                return out, True
     finally:
         flint.ctx.prec = old_prec
     return out, True

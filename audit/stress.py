@@ -213,7 +213,7 @@ def _scipy_zpk(r: Realization, spec: SystemSpec) -> tuple[Realization, Realizati
     return r, _result(*sig.zpk2ss(z, p, k), r.sample_period)
 
 
-def _scipy_c2d(method: str) -> Converter:
+def _scipy_discretization(method: str) -> Converter:
     def run(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
         import scipy.signal as sig
 
@@ -245,7 +245,7 @@ def _control_tf(r: Realization, spec: SystemSpec) -> tuple[Realization, Realizat
     return r, _from_control(control.tf2ss(control.ss2tf(_control_sys(r))), r.sample_period)
 
 
-def _control_canonical(form: str) -> Converter:
+def _python_control_form(form: str) -> Converter:
     def run(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
         import control
 
@@ -258,7 +258,7 @@ def _control_canonical(form: str) -> Converter:
     return run
 
 
-def _control_minreal(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
+def _python_control_reduction(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
     import control
 
     _states(r, "control.minreal")
@@ -326,19 +326,19 @@ def _build_pipelines() -> dict[str, Pipeline]:
                  _scipy_tf),
         Pipeline("scipy: ss2zpk/zpk2ss", "scipy", "scipy.signal.ss2zpk then zpk2ss (SISO)", _scipy_zpk),
         Pipeline("scipy: cont2discrete zoh", "scipy",
-                 "scipy.signal.cont2discrete(zoh) against lti-audit discretize(zoh)", _scipy_c2d("zoh")),
+                 "scipy.signal.cont2discrete(zoh) against lti-audit discretize(zoh)", _scipy_discretization("zoh")),
         Pipeline("scipy: cont2discrete bilinear", "scipy",
                  "scipy.signal.cont2discrete(bilinear) against lti-audit discretize(tustin)",
-                 _scipy_c2d("bilinear")),
+                 _scipy_discretization("bilinear")),
         Pipeline("python-control: ss2tf/tf2ss", "python-control", "control.ss2tf then control.tf2ss",
                  _control_tf),
         Pipeline("python-control: reachable form", "python-control",
-                 "control.canonical_form(reachable) (SISO)", _control_canonical("reachable")),
+                 "control.canonical_form(reachable) (SISO)", _python_control_form("reachable")),
         Pipeline("python-control: observable form", "python-control",
-                 "control.canonical_form(observable) (SISO)", _control_canonical("observable")),
+                 "control.canonical_form(observable) (SISO)", _python_control_form("observable")),
         Pipeline("python-control: modal form", "python-control", "control.canonical_form(modal)",
-                 _control_canonical("modal")),
-        Pipeline("python-control: minreal", "python-control", "control.minreal", _control_minreal),
+                 _python_control_form("modal")),
+        Pipeline("python-control: minreal", "python-control", "control.minreal", _python_control_reduction),
         Pipeline("python-control: sample_system zoh", "python-control",
                  "control.sample_system(zoh) against lti-audit discretize(zoh)", _control_sample("zoh")),
         Pipeline("python-control: sample_system tustin", "python-control",

@@ -316,6 +316,8 @@ def _escalate(
         enclosures, complete = enclose_difference(
             sh.r1, sh.r2, np.array(freqs), max_seconds=opts.escalation_seconds,
             contour_shift=shift,
+            # one frequency with a proven difference above the tolerance settles it
+            stop=lambda e: e.difference_low > rtol * max(scale * (1 + 1e-6), e.reference_gain_high),
         )
     except NumericalTroubleError as exc:
         return "unclear", f"extended precision failed: {exc}", "double", {"error": str(exc)}
