@@ -75,6 +75,26 @@ def build_similarity(rng, n, cond, discrete=False, io=(1, 1), spread=6.0, dampin
     return r1, _transformed(rng, r1, cond), f"n={n} {io[1]}x{io[0]} cond(T)={cond:.0e}"
 
 
+def build_rescaled(rng, n, cond, mix):
+    """States rescaled (units changed) over a cond(T) range, reordered, optionally mixed.
+
+    T = D (I + L) P: D diagonal spanning ``cond``, P a permutation, L a small strictly
+    lower-triangular coupling when ``mix`` (cond of I + L stays near 1). This is the
+    everyday refactor (new state units, new state order); rounding of such a transform is
+    componentwise benign, so the stored pair stays equivalent even at cond(T) = 1e8.
+    """
+    r1 = _base(rng, n, spread=4.0, damping=(1e-2, 0.7))
+    half = 0.5 * math.log10(cond)
+    d = 10.0 ** rng.uniform(-half, half, n)
+    d[0], d[-1] = 10.0 ** half, 10.0 ** -half
+    t = np.diag(d)
+    if mix:
+        t = t @ (np.eye(n) + np.tril(0.1 * rng.standard_normal((n, n)), -1))
+    t = t @ np.eye(n)[rng.permutation(n)]
+    return r1, cs.transform_in_extended_precision(r1, t, name="claimed"), (
+        f"n={n} states rescaled over cond(T)={cond:.0e}{' and mixed' if mix else ''}")
+
+
 def build_hidden(rng, n, k, cond):
     r1 = _base(rng, n)
     # k hidden modes: alternately uncontrollable (B part zero) and unobservable (C part
@@ -189,6 +209,10 @@ def _families(quick: bool) -> list[tuple[str, str, list[Any], Callable[..., Any]
         ("similarity_ill_conditioned", "equivalent",
          pick([(4, 1e8)], [(6, 1e6), (6, 1e8), (12, 1e6), (12, 1e8), (20, 1e7), (20, 1e8)]),
          lambda rng, n, c: build_similarity(rng, n, c, spread=2.0, damping=(0.1, 0.7))),
+        ("rescaled_states", "equivalent",
+         pick([(6, 1e8, True)], [(10, 1e6, False), (10, 1e8, True), (30, 1e8, False),
+                                 (30, 1e8, True), (60, 1e8, True), (100, 1e8, False)]),
+         lambda rng, n, c, mix: build_rescaled(rng, n, c, mix)),
         ("hidden_modes", "equivalent",
          pick([(5, 2)], [(8, 2), (8, 4), (20, 3), (20, 6), (40, 4), (40, 6)]),
          lambda rng, n, k: build_hidden(rng, n, k, 1e3)),
