@@ -115,8 +115,8 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _compare(args: argparse.Namespace) -> int:
     from .errors import IncompatibleModelsError
-    from .loading import load_realization
-    from .report import compare_report, render_compare_text, render_json
+    from .loading import load_model_document, realization_from_document
+    from .report import compare_report, render_compare_text, render_json, signal_labels
     from .verdict import Options, overall_verdict
 
     if len(args.models) < 2:
@@ -130,7 +130,9 @@ def _compare(args: argparse.Namespace) -> int:
                          "overwrites a file\n")
         return EXIT_INVALID
     start = time.perf_counter()
-    models = [load_realization(path) for path in args.models]
+    docs = [load_model_document(path) for path in args.models]
+    models = [realization_from_document(doc).with_name(doc.name) for doc in docs]
+    signals = [signal_labels(doc) for doc in docs]
     names = [m.name or os.path.basename(p) for m, p in zip(models, args.models)]
     models = [m.with_name(n) for m, n in zip(models, names)]
     options = Options(rtol=args.rtol, escalate=args.escalation_seconds > 0,
@@ -143,7 +145,8 @@ def _compare(args: argparse.Namespace) -> int:
         except IncompatibleModelsError as exc:
             raise IncompatibleModelsError(f"{path}: {exc}") from None
     verdict = overall_verdict(pairs)
-    data = compare_report(models, list(args.models), pairs, options, verdict, time.perf_counter() - start)
+    data = compare_report(models, list(args.models), pairs, options, verdict,
+                          time.perf_counter() - start, signals=signals)
     if args.format == "html":
         from .html_report import render_compare_html
 

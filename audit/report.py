@@ -66,6 +66,10 @@ class ModelEntry(_Strict):
     inputs: int
     outputs: int
     sample_period: float | None
+    input_names: list[str] | None = Field(default=None, description="Names (units) of the "
+                                          "inputs, from the model document, when given")
+    output_names: list[str] | None = Field(default=None, description="Names (units) of the "
+                                           "outputs, from the model document, when given")
 
 
 class Tolerances(_Strict):
@@ -105,8 +109,8 @@ class InspectReport(_Strict):
 
 
 # ------------------------------------------------------------------ builders
-def model_entry(r: Any, source: str) -> dict[str, Any]:
-    return {
+def model_entry(r: Any, source: str, signals: dict[str, list[str] | None] | None = None) -> dict[str, Any]:
+    entry = {
         "name": r.name,
         "source": source,
         "order": r.order,
@@ -114,10 +118,25 @@ def model_entry(r: Any, source: str) -> dict[str, Any]:
         "outputs": r.n_outputs,
         "sample_period": r.sample_period,
     }
+    if signals:
+        entry["input_names"] = signals.get("inputs")
+        entry["output_names"] = signals.get("outputs")
+    return entry
+
+
+def signal_labels(doc: Any) -> dict[str, list[str] | None]:
+    """``{"inputs": [...], "outputs": [...]}`` as "name [unit]" from a model document."""
+    def labels(items: Any) -> list[str] | None:
+        if not items:
+            return None
+        return [f"{it.name} [{it.unit}]" if getattr(it, "unit", None) else str(it.name) for it in items]
+
+    return {"inputs": labels(getattr(doc, "inputs", None)), "outputs": labels(getattr(doc, "outputs", None))}
 
 
 def compare_report(models: list[Any], sources: list[str], pairs: list[Any], options: Any,
-                   verdict: str, seconds: float) -> dict[str, Any]:
+                   verdict: str, seconds: float,
+                   signals: list[dict[str, list[str] | None]] | None = None) -> dict[str, Any]:
     """Assemble and validate the compare report (a plain dict following CompareReport)."""
     summary = _compare_summary(pairs, verdict)
     data = {
@@ -127,7 +146,8 @@ def compare_report(models: list[Any], sources: list[str], pairs: list[Any], opti
         "summary": summary,
         "tolerances": {"rtol": options.rtol, "rank_tol": options.rank_tol,
                        "escalation_seconds": options.escalation_seconds},
-        "models": [model_entry(r, s) for r, s in zip(models, sources)],
+        "models": [model_entry(r, s, sig) for r, s, sig in
+                   zip(models, sources, signals or [None] * len(models))],
         "comparisons": [p.as_dict() for p in pairs],
         "seconds": round(seconds, 6),
         "caution": CAUTION,
@@ -213,20 +233,27 @@ def render_compare_text(data: dict[str, Any]) -> str:
         diag = pair["diagnosis"]
         if diag:
             lines.append("   diagnosis:")
-            for line in _diagnosis_lines(diag):
-                lines.append("     " + line)
+            for line in _diagnosis_lines(diag, data["models"][0]):
+                lines.append(_wrap(line, "     "))
     lines.append("")
     lines.append(_wrap(data["summary"], ""))
     lines.append(data["caution"])
     return "\n".join(lines) + "\n"
 
 
-def _diagnosis_lines(diag: dict[str, Any]) -> list[str]:
+def _signal(names: list[str] | None, index: int) -> str:
+    return f"{index} ({names[index]})" if names and index < len(names) else str(index)
+
+
+def _diagnosis_lines(diag: dict[str, Any], reference: dict[str, Any] | None = None) -> list[str]:
     out = []
+    ins = (reference or {}).get("input_names")
+    outs = (reference or {}).get("output_names")
     chans = diag.get("differing_channels") or []
     if chans:
-        out.append("channels that differ (output, input): " + ", ".join(
-            f"({c['output']}, {c['input']}) {c['relative_difference']:.3g}" for c in chans))
+        out.append("channels that differ (output <- input: relative difference): " + ", ".join(
+            f"{_signal(outs, c['output'])} <- {_signal(ins, c['input'])}: {c['relative_difference']:.3g}"
+            for c in chans))
     if diag.get("band_of_largest_discrepancy_rad_s"):
         lo, hi = diag["band_of_largest_discrepancy_rad_s"]
         out.append(f"band of largest discrepancy: {lo:.4g} to {hi:.4g} rad/s")
