@@ -210,7 +210,9 @@ def _recognise(r: Realization) -> Any:
         from .forms import recognise_form
     except ImportError:  # pragma: no cover
         return None
+    from .errors import AuditError
+
     try:
         return _jsonable(recognise_form(r).as_dict())
-    except Exception:  # noqa: BLE001 - recognition is a courtesy, never fatal
+    except AuditError:  # recognition is a courtesy: a model it cannot judge gets none
         return None

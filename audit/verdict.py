@@ -142,7 +142,7 @@ def _shared(r1: Realization, r2: Realization, min1: Any, min2: Any) -> _Shared:
     peak1 = peak_gain(s1)
     peak2 = peak_gain(s2)
     grid_peak = float(max(_sigma_max(g1).max(initial=0.0), _sigma_max(g2).max(initial=0.0)))
-    scale = max(float(peak1.value), float(peak2.value), grid_peak)
+    scale = max(_gain_or_zero(peak1.value), _gain_or_zero(peak2.value), grid_peak)
     return _Shared(r1, r2, contour, s1, s2, grid, g1, g2, err1, err2, peak1, peak2, scale, min1, min2)
 
 
@@ -184,6 +184,16 @@ def evaluate_with_error_estimate(
     return values, estimate
 
 
+UNDERFLOW_GAIN = 1e-290
+"""Peak gains below this are the underflow floor of the norm computation, i.e. zero
+(an identically zero transfer matrix realized with hidden modes)."""
+
+
+def _gain_or_zero(value: Any) -> float:
+    v = float(value)
+    return 0.0 if v <= UNDERFLOW_GAIN else v
+
+
 def _as_point_errors(bound: Any) -> NDArray[np.float64]:
     arr = np.asarray(bound, dtype=float)
     if arr.ndim == 1:
@@ -216,8 +226,8 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
     scale = sh.scale
     grid_max_idx = int(np.argmax(diffs)) if diffs.size else 0
     grid_max = float(diffs[grid_max_idx]) if diffs.size else 0.0
-    value_abs = max(float(peak_e.value), grid_max)
-    peak_freq = float(peak_e.frequency) if float(peak_e.value) >= grid_max else float(sh.grid[grid_max_idx])
+    value_abs = max(_gain_or_zero(peak_e.value), grid_max)
+    peak_freq = float(peak_e.frequency) if _gain_or_zero(peak_e.value) >= grid_max else float(sh.grid[grid_max_idx])
     err_abs = float(errs.max(initial=0.0))
     details: dict[str, Any] = {
         "contour": sh.contour.describe(),
@@ -250,7 +260,7 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
         summary = (
             f"the difference G1 - G2 stays below {rel:.2e} of the peak gain at every "
             f"frequency (tolerance {rtol:.1e})"
-        )
+        ) if scale > 0 else "both transfer matrices are identically zero"
     elif rel - rel_err > rtol:
         outcome = "fail"
         summary = (

@@ -266,3 +266,14 @@ def test_property_moved_pole_is_different(data):
     r2 = r1.with_matrices(a, r1.b, r1.c)
     res = compare_pair(r1.with_name("a"), r2.with_name("b"))
     assert res.verdict == "different", res.explanation
+
+
+def test_identically_zero_systems_with_hidden_modes_are_equivalent():
+    # regression: G = 0 realized with hidden modes made the norm routine return its
+    # underflow floor, and 0-vs-floor was judged "different" (relative difference 1)
+    z1 = Realization.from_arrays([[-1.0]], [[1.0]], [[0.0]], [[0.0]], name="z1")
+    z2 = Realization.from_arrays([[-3.0, 0.0], [0.0, -2.0]], [[0.0], [1.0]], [[1.0, 0.0]], [[0.0]],
+                                 name="z2")  # uncontrollable mode observed, observable mode not driven
+    assert compare_pair(z1, z2).verdict == "equivalent"
+    g = Realization.from_arrays([[-1.0]], [[1.0]], [[1e-3]], [[0.0]], name="small but nonzero")
+    assert compare_pair(z1, g).verdict == "different"
