@@ -281,22 +281,14 @@ _PRETTY = {
 }
 
 
-def _response_points(r: Realization) -> NDArray[np.complex128]:
-    """Three evaluation points away from the poles, spread over the pole magnitudes."""
-    if r.is_discrete:
-        return 1.25 * np.exp(1j * np.array([0.3, 1.5, 2.8]))
-    mags = np.abs(r.poles())
-    mags = mags[mags > 0]
-    lo, hi = (float(mags.min()), float(mags.max())) if mags.size else (1.0, 1.0)
-    return np.array([lo, math.sqrt(lo * hi), hi]) * (0.3 + 1j)
-
-
 def response_discrepancy(r_old: Realization, r_new: Realization) -> float:
-    """Largest relative difference of the two frequency responses at three test points.
+    """Largest relative difference of the two frequency responses on an adaptive grid.
 
-    ``max_k ||G_new(s_k) - G_old(s_k)||_2 / max_k ||G_old(s_k)||_2`` with the points of
-    :func:`_response_points` (chosen from the poles of ``r_old``); an independent
-    self-check of a produced form.
+    ``max_k ||G_new(s_k) - G_old(s_k)||_2 / max_k ||G_old(s_k)||_2`` over the adaptive
+    grid of :func:`audit.frequency.adaptive_frequency_grid` (every pole frequency of both
+    models, DC, the high-frequency limit or Nyquist), on the imaginary axis / unit circle
+    or, when a pole lies on it, on the slightly shifted contour the verdict uses. The same
+    metric as the verdict's grid evidence: an independent self-check of a produced form.
 
     Parameters
     ----------
@@ -312,24 +304,23 @@ def response_discrepancy(r_old: Realization, r_new: Realization) -> float:
     ------
     None
     """
-    pts = _response_points(r_old)
-    worst, ref = 0.0, 0.0
-    for pt in pts:
-        vals = []
-        for rr in (r_old, r_new):
-            n = rr.order
-            if n == 0:
-                vals.append(rr.d.astype(complex))
-                continue
-            try:
-                x = np.linalg.solve(pt * np.eye(n) - rr.a, rr.b.astype(complex))
-            except np.linalg.LinAlgError:
-                return math.inf
-            vals.append(rr.c @ x + rr.d)
-        if not all(np.all(np.isfinite(v)) for v in vals):
-            return math.inf
-        worst = max(worst, float(np.linalg.norm(vals[1] - vals[0], 2)))
-        ref = max(ref, float(np.linalg.norm(vals[0], 2)))
+    from .evidence import choose_contour, frequency_to_point
+    from .frequency import TransferEvaluator, adaptive_frequency_grid
+
+    try:
+        contour = choose_contour([r_old, r_new])
+        s_old, s_new = contour.apply(r_old), contour.apply(r_new)
+        grid = adaptive_frequency_grid([s_old, s_new, r_old, r_new], points_per_decade=10)
+        pts = frequency_to_point(grid, s_old)
+        with np.errstate(all="ignore"):
+            g_old = TransferEvaluator(s_old).at(pts)
+            g_new = TransferEvaluator(s_new).at(pts)
+    except AuditError:
+        return math.inf
+    if not (np.all(np.isfinite(g_old)) and np.all(np.isfinite(g_new))):
+        return math.inf
+    worst = float(np.linalg.norm(g_new - g_old, 2, axis=(1, 2)).max(initial=0.0))
+    ref = float(np.linalg.norm(g_old, 2, axis=(1, 2)).max(initial=0.0))
     return worst / ref if ref > 0 else worst
 
 
@@ -531,7 +522,7 @@ def controllable_companion_form(
     r: Realization,
     *,
     rank_rtol: float = DEFAULT_RANK_RTOL,
-    max_response_error: float = 1e-3,
+    max_response_error: float = 1e-6,
 ) -> FormConversion:
     """Controllable companion (controller canonical) form.
 
@@ -555,9 +546,11 @@ def controllable_companion_form(
         Relative tolerance of the PBH controllability test and of the Krylov column
         selection (default :data:`DEFAULT_RANK_RTOL`).
     max_response_error : float, keyword-only
-        The produced form is checked against the model at three frequencies
+        The produced form is checked against the model on an adaptive frequency grid
         (:func:`response_discrepancy`); above this relative difference it is refused
-        (default 1e-3).  Between 1e-8 and this value a warning is attached.
+        (default 1e-6, a tenth of the default audit tolerance, so that a produced form
+        is judged equivalent to its source).  Between 1e-8 and this value a warning is
+        attached.
 
     Returns
     -------
@@ -684,8 +677,8 @@ def _krylov_controllable_companion(
             f"controllable companion form of order {n}: the computed form's frequency "
             f"response differs from the model's by {disc:.1e} (relative, more than "
             f"max_response_error={max_response_error:g}); the Krylov transformation has "
-            f"cond = {info['krylov_condition']:.1e} and the companion coefficients cannot "
-            "represent this model in double precision; use modal_form or balanced_form"
+            f"cond = {info['krylov_condition']:.1e} and loses that much accuracy in double "
+            "precision; use modal_form or balanced_form"
         )
     warnings: list[str] = []
     if residual > 1e-6:
@@ -705,7 +698,7 @@ def observable_companion_form(
     r: Realization,
     *,
     rank_rtol: float = DEFAULT_RANK_RTOL,
-    max_response_error: float = 1e-3,
+    max_response_error: float = 1e-6,
 ) -> FormConversion:
     """Observable companion (observer canonical) form, the dual of the controllable one.
 
