@@ -221,13 +221,34 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
     rtol = opts.rtol
     e = difference_system(sh.s1, sh.s2)
     peak_e = peak_gain(e)
+    # The Hamiltonian search LOCATES the peak of G1 - G2; its value is then measured
+    # like every grid point, from G1 and G2 separately with an error estimate, so that no
+    # decisive number comes without one (the norm routine's own evaluation of the
+    # order n1 + n2 difference system can be far less accurate near cancelling modes).
+    freqs = np.asarray(sh.grid, dtype=float)
     diffs = _sigma_max(sh.g1 - sh.g2)
     errs = sh.err1 + sh.err2
+    pf = float(peak_e.frequency)
+    if np.isfinite(pf) and pf >= 0.0:
+        pts = frequency_to_point(np.array([pf]), sh.s1)
+        try:
+            g1p, e1p = evaluate_with_error_estimate(sh.s1, pts)
+            g2p, e2p = evaluate_with_error_estimate(sh.s2, pts)
+            freqs = np.append(freqs, pf)
+            diffs = np.append(diffs, _sigma_max(g1p - g2p))
+            errs = np.append(errs, e1p + e2p)
+        except NumericalTroubleError:
+            pass  # the located point is numerically a pole; the grid still stands
+    elif not np.isfinite(pf) and not sh.r1.is_discrete:
+        # peak at the high-frequency limit: the difference of the feedthroughs
+        hf = float(np.linalg.norm(sh.r1.d - sh.r2.d, 2)) if sh.r1.d.size else 0.0
+        freqs = np.append(freqs, np.inf)
+        diffs = np.append(diffs, hf)
+        errs = np.append(errs, 4 * EPS * max(float(np.linalg.norm(sh.r1.d, 2)), float(np.linalg.norm(sh.r2.d, 2)), 0.0))
     scale = sh.scale
-    grid_max_idx = int(np.argmax(diffs)) if diffs.size else 0
-    grid_max = float(diffs[grid_max_idx]) if diffs.size else 0.0
-    value_abs = max(_gain_or_zero(peak_e.value), grid_max)
-    peak_freq = float(peak_e.frequency) if _gain_or_zero(peak_e.value) >= grid_max else float(sh.grid[grid_max_idx])
+    worst_idx = int(np.argmax(diffs)) if diffs.size else 0
+    value_abs = float(diffs[worst_idx]) if diffs.size else 0.0
+    peak_freq = float(freqs[worst_idx]) if diffs.size else 0.0
     err_abs = float(errs.max(initial=0.0))
     details: dict[str, Any] = {
         "contour": sh.contour.describe(),
@@ -241,6 +262,8 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
             "lower": float(getattr(peak_e, "lower", np.nan)),
             "upper": float(getattr(peak_e, "upper", np.nan)),
             "note": getattr(peak_e, "note", ""),
+            "value_from_search": _gain_or_zero(peak_e.value),
+            "frequency_from_search": pf,
         },
         "grid_points": int(sh.grid.size),
         "estimated_rounding_error": err_abs,
@@ -274,7 +297,7 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
             f"{rel_err:.1e}, which straddles the tolerance {rtol:.1e}"
         )
     if outcome == "unclear" and opts.escalate:
-        outcome, summary, precision, esc = _escalate(sh, opts, diffs, errs, peak_freq, scale)
+        outcome, summary, precision, esc = _escalate(sh, opts, freqs, diffs, errs, peak_freq, scale)
         details["extended_precision"] = esc
         if "relative_difference" in esc:
             rel = float(esc["relative_difference"])
@@ -310,6 +333,7 @@ def _first_order_bound(sh: _Shared, omega: float) -> float | None:
 def _escalate(
     sh: _Shared,
     opts: Options,
+    grid: NDArray[np.float64],
     diffs: NDArray[np.float64],
     errs: NDArray[np.float64],
     peak_freq: float,
@@ -321,7 +345,7 @@ def _escalate(
     rtol = opts.rtol
     straddling = np.nonzero((diffs + errs) > rtol * scale)[0]
     order = straddling[np.argsort(-(diffs[straddling] + errs[straddling]))]
-    freqs = [peak_freq] + [float(sh.grid[i]) for i in order]
+    freqs = [f for f in [peak_freq] + [float(grid[i]) for i in order] if np.isfinite(f)]
     shift = sh.contour.shift if sh.contour.shifted else None
     try:
         enclosures, complete = enclose_difference(
