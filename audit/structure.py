@@ -607,7 +607,8 @@ class MinimalRealization:
     ----------
     realization : Realization
         Minimal; obtained from the (optionally state-scaled) realization by orthogonal
-        transformations; same D, sample period and name.
+        transformations; same D, sample period and name. When nothing is removed it is
+        the given realization itself, in its own coordinates.
     order : int
         Its order (the McMillan degree, as judged with ``tolerance``).
     original_order : int
@@ -751,6 +752,10 @@ def _minimal_realization(
     work, d, scaled = _prepare(r, balance)
     minimal, unc, uno, decisions, discarded = _minimal_parts(work, rtol)
     unscaled_order = _minimal_parts(r, rtol)[0].order if scaled else minimal.order
+    if minimal.order == r.order:
+        # nothing to remove: keep the user's coordinates exactly (any transformation,
+        # even an orthogonal one, perturbs near-defective poles by ~sqrt(eps))
+        minimal = r
     return MinimalRealization(
         realization=minimal,
         order=minimal.order,
