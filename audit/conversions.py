@@ -927,7 +927,7 @@ def _siso_zeros_slycot(a: FloatArray, b: FloatArray, c: FloatArray, d: float) ->
     return zeros
 
 
-def _channel_zpk(
+def _channel_zeros_poles_gain(
     r: Realization, i: int, j: int, *, rank_rtol: float
 ) -> tuple[ComplexArray, ComplexArray, float]:
     a, b, c = _minimal_part(
@@ -1016,7 +1016,7 @@ def zeros_poles_gain_from_realization(
     for i in range(r.n_outputs):
         zrow, prow, grow = [], [], []
         for j in range(r.n_inputs):
-            z, p, k = _channel_zpk(r, i, j, rank_rtol=rank_rtol)
+            z, p, k = _channel_zeros_poles_gain(r, i, j, rank_rtol=rank_rtol)
             zrow.append([complex(v) for v in z])
             prow.append([complex(v) for v in p])
             grow.append(float(k))

@@ -22,7 +22,7 @@ from typing import Any, Callable, Literal
 import numpy as np
 from numpy.typing import NDArray
 
-from .realization import Realization, difference_system
+from .realization import Realization
 
 Outcome = Literal["pass", "fail", "unclear", "info", "skipped"]
 EPS = float(np.finfo(float).eps)
@@ -42,16 +42,20 @@ def complex_pairs(values: NDArray[np.complexfloating] | list[complex]) -> list[l
     return [[float(np.real(v)), float(np.imag(v))] for v in np.asarray(values).ravel()]
 
 
-def _jsonable(value: Any) -> Any:
-    """Convert numpy scalars/arrays (and nested containers) to JSON-friendly values."""
+def to_jsonable(value: Any) -> Any:
+    """Convert numpy scalars/arrays (and nested containers) to JSON-friendly values.
+
+    Complex numbers become ``[re, im]``; non-finite floats become the strings ``"inf"``,
+    ``"-inf"`` or ``"nan"`` so that reports stay valid JSON.
+    """
     if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
+        return {str(k): to_jsonable(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
+        return [to_jsonable(v) for v in value]
     if isinstance(value, np.ndarray):
         if np.iscomplexobj(value):
             return complex_pairs(value)
-        return _jsonable(value.tolist())
+        return to_jsonable(value.tolist())
     if isinstance(value, (complex, np.complexfloating)):
         return [float(np.real(value)), float(np.imag(value))]
     if isinstance(value, (np.floating, float)):
@@ -110,14 +114,14 @@ class Evidence:
             "key": self.key,
             "title": self.title,
             "metric": self.metric,
-            "value": _jsonable(self.value),
+            "value": to_jsonable(self.value),
             "tolerance": self.tolerance,
             "outcome": self.outcome,
             "decisive": self.decisive,
             "precision": self.precision,
             "seconds": round(self.seconds, 6),
             "summary": self.summary,
-            "details": _jsonable(self.details),
+            "details": to_jsonable(self.details),
         }
 
 
@@ -215,10 +219,10 @@ def frequency_to_point(omega: NDArray[np.float64], r: Realization) -> NDArray[np
 
 __all__ = [
     "Evidence",
+    "to_jsonable",
     "Contour",
     "choose_contour",
     "DEFAULT_RTOL",
-    "difference_system",
     "frequency_to_point",
     "skipped",
     "timed",

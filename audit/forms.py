@@ -1611,16 +1611,16 @@ _SHAPE_TEXT = {
     "last_column": "coefficients in last column, ones on subdiagonal",
     "first_column": "coefficients in first column, ones on superdiagonal",
 }
-_CTRB_VARIANTS = [("last_row", "n"), ("first_row", "1"), ("last_column", "1"),
+_CONTROLLABLE_COMPANION_VARIANTS = [("last_row", "n"), ("first_row", "1"), ("last_column", "1"),
                   ("first_column", "n")]
-_OBSV_VARIANTS = [("last_column", "n"), ("first_column", "1"), ("last_row", "1"),
+_OBSERVABLE_COMPANION_VARIANTS = [("last_column", "n"), ("first_column", "1"), ("last_row", "1"),
                   ("first_row", "n")]
 
 
 def _siso_companion_checks(r: Realization, rtol: float, kind: str) -> list[tuple[str, _Checker]]:
     n = r.order
     out = []
-    variants = _CTRB_VARIANTS if kind == "controllable" else _OBSV_VARIANTS
+    variants = _CONTROLLABLE_COMPANION_VARIANTS if kind == "controllable" else _OBSERVABLE_COMPANION_VARIANTS
     vec_name = "B" if kind == "controllable" else "C"
     vec = (r.b[:, 0] if kind == "controllable" else r.c[0, :])
     for shape, where in variants:

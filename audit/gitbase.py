@@ -294,7 +294,7 @@ class FileChange:
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (floats, lists, strings; complex as [re, im])."""
-        from .evidence import _jsonable
+        from .evidence import to_jsonable
 
         return {
             "path": self.path,
@@ -303,11 +303,11 @@ class FileChange:
             "status": self.status,
             "explanation": self.explanation,
             "coordinate_change": self.coordinate_change,
-            "peak_relative_difference": _jsonable(self.peak_relative_difference),
-            "peak_frequency_rad_s": _jsonable(self.peak_frequency_rad_s),
-            "diagnosis": _jsonable(self.diagnosis),
+            "peak_relative_difference": to_jsonable(self.peak_relative_difference),
+            "peak_frequency_rad_s": to_jsonable(self.peak_frequency_rad_s),
+            "diagnosis": to_jsonable(self.diagnosis),
             "warnings": list(self.warnings),
-            "details": _jsonable(self.details),
+            "details": to_jsonable(self.details),
             "seconds": round(float(self.seconds), 6),
         }
 

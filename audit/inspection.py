@@ -19,7 +19,7 @@ import scipy.linalg
 from .errors import NumericalTroubleError
 from .evidence import (
     Evidence,
-    _jsonable,
+    to_jsonable,
     complex_pairs,
     fmt_complex,
     minimal_order_evidence,
@@ -52,7 +52,7 @@ class Inspection:
             "status": self.status,
             "problems": list(self.problems),
             "notes": list(self.notes),
-            "properties": _jsonable(self.properties),
+            "properties": to_jsonable(self.properties),
             "evidence": [e.as_dict() for e in self.evidence],
             "seconds": round(self.seconds, 6),
         }
@@ -198,7 +198,7 @@ def _check_form(r: Realization, claimed: str) -> tuple[dict[str, Any], str | Non
     except ImportError:  # pragma: no cover - forms module ships with the package
         return {"claimed": claimed, "checked": False}, None
     res = check_claimed_form(r, claimed)
-    info = {"claimed": claimed, "checked": True, **_jsonable(res.as_dict())}
+    info = {"claimed": claimed, "checked": True, **to_jsonable(res.as_dict())}
     if res.holds:
         return info, None
     devs = "; ".join(list(res.deviations)[:3])
@@ -213,6 +213,6 @@ def _recognise(r: Realization) -> Any:
     from .errors import AuditError
 
     try:
-        return _jsonable(recognise_form(r).as_dict())
+        return to_jsonable(recognise_form(r).as_dict())
     except AuditError:  # recognition is a courtesy: a model it cannot judge gets none
         return None

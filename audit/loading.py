@@ -326,11 +326,11 @@ def realization_from_document(doc: ModelDocument) -> Realization:
             result = conversions.realization_from_transfer_function(
                 numerator, denominator, doc.sample_period)
         else:
-            zpk = doc.zeros_poles_gain
-            assert zpk is not None
-            zeros = [[[complex(re, im) for re, im in ch] for ch in row] for row in zpk.zeros]
-            poles = [[[complex(re, im) for re, im in ch] for ch in row] for row in zpk.poles]
-            gain = np.array(zpk.gain, dtype=float)
+            factored = doc.zeros_poles_gain
+            assert factored is not None
+            zeros = [[[complex(re, im) for re, im in ch] for ch in row] for row in factored.zeros]
+            poles = [[[complex(re, im) for re, im in ch] for ch in row] for row in factored.poles]
+            gain = np.array(factored.gain, dtype=float)
             result = conversions.realization_from_zeros_poles_gain(
                 zeros, poles, gain, doc.sample_period)
     except AuditError:

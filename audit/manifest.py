@@ -548,9 +548,9 @@ def default_manifest(directory: str | Path) -> ManifestFile:
 
 # ------------------------------------------------------------------- results
 def _plain(value: Any) -> Any:
-    from .evidence import _jsonable
+    from .evidence import to_jsonable
 
-    return _jsonable(value)
+    return to_jsonable(value)
 
 
 @dataclass(frozen=True)

@@ -278,10 +278,10 @@ def _boundary_poles(
     scale = max(a_norm, float(np.linalg.norm(r.b)), float(np.linalg.norm(r.c)), 1e-300)
     for lam in on:
         shifted = lam * np.eye(n) - r.a
-        ctrb_sv = np.linalg.svd(np.hstack([shifted, r.b]), compute_uv=False)[-1]
-        obsv_sv = np.linalg.svd(np.vstack([shifted, r.c]), compute_uv=False)[-1]
+        input_coupling = np.linalg.svd(np.hstack([shifted, r.b]), compute_uv=False)[-1]
+        output_coupling = np.linalg.svd(np.vstack([shifted, r.c]), compute_uv=False)[-1]
         # Popov-Belevitch-Hautus test with a relative threshold (common practice).
-        if min(ctrb_sv, obsv_sv) <= 1e-8 * scale:
+        if min(input_coupling, output_coupling) <= 1e-8 * scale:
             hidden.append(complex(lam))
         else:
             visible.append(complex(lam))

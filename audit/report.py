@@ -12,7 +12,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from .evidence import _jsonable
+from .evidence import to_jsonable
 
 CAUTION = (
     "Caution: this verdict is numerical evidence within the stated tolerances, not a "
@@ -152,7 +152,7 @@ def compare_report(models: list[Any], sources: list[str], pairs: list[Any], opti
         "seconds": round(seconds, 6),
         "caution": CAUTION,
     }
-    data = _jsonable(data)
+    data = to_jsonable(data)
     CompareReport.model_validate(data)
     return data
 
@@ -190,7 +190,7 @@ def inspect_report(r: Any, source: str, insp: Any) -> dict[str, Any]:
         "seconds": round(insp.seconds, 6),
         "caution": CAUTION,
     }
-    data = _jsonable(data)
+    data = to_jsonable(data)
     InspectReport.model_validate(data)
     return data
 
@@ -322,7 +322,7 @@ def _mat(v: Any) -> str:
         return _num(v[0][0])
     if isinstance(v, list) and all(isinstance(row, list) for row in v):
         return "[" + "; ".join(" ".join(f"{float(x):.6g}" for x in row) for row in v) + "]"
-    return json.dumps(_jsonable(v))
+    return json.dumps(to_jsonable(v))
 
 
 def _wrap(text: str, indent: str, width: int = 100) -> str:

@@ -168,7 +168,7 @@ def _audit_tf(r: Realization, spec: SystemSpec) -> tuple[Realization, Realizatio
     return r, realization_from_transfer_function(tf.numerator, tf.denominator, r.sample_period)
 
 
-def _audit_zpk(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
+def _audit_zeros_poles_gain_round_trip(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
     from .conversions import realization_from_zeros_poles_gain, zeros_poles_gain_from_realization
 
     z = zeros_poles_gain_from_realization(r)
@@ -204,7 +204,7 @@ def _scipy_tf(r: Realization, spec: SystemSpec) -> tuple[Realization, Realizatio
     return r, _block_stack(parts, r.sample_period)
 
 
-def _scipy_zpk(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
+def _scipy_zeros_poles_gain_round_trip(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
     import scipy.signal as sig
 
     _siso(r, "scipy.signal.ss2zpk / zpk2ss")
@@ -313,8 +313,8 @@ def _build_pipelines() -> dict[str, Pipeline]:
     items: list[Pipeline] = [
         Pipeline("lti-audit: tf round trip", "lti-audit",
                  "transfer_function_from_realization, then realization_from_transfer_function", _audit_tf),
-        Pipeline("lti-audit: zpk round trip", "lti-audit",
-                 "zeros_poles_gain_from_realization, then realization_from_zeros_poles_gain", _audit_zpk),
+        Pipeline("lti-audit: zeros-poles-gain round trip", "lti-audit",
+                 "zeros_poles_gain_from_realization, then realization_from_zeros_poles_gain", _audit_zeros_poles_gain_round_trip),
         Pipeline("lti-audit: minimal realization", "lti-audit", "structure.minimal_realization",
                  _audit_minimal),
     ]
@@ -322,15 +322,15 @@ def _build_pipelines() -> dict[str, Pipeline]:
         items.append(Pipeline(f"lti-audit: {form} form", "lti-audit", f"forms.FORMS[{form!r}]",
                               _audit_form(form)))
     items += [
-        Pipeline("scipy: ss2tf/tf2ss", "scipy", "scipy.signal.ss2tf per input, tf2ss, inputs stacked",
+        Pipeline("scipy: transfer-function round trip", "scipy", "scipy.signal.ss2tf per input, tf2ss, inputs stacked",
                  _scipy_tf),
-        Pipeline("scipy: ss2zpk/zpk2ss", "scipy", "scipy.signal.ss2zpk then zpk2ss (SISO)", _scipy_zpk),
-        Pipeline("scipy: cont2discrete zoh", "scipy",
+        Pipeline("scipy: zeros-poles-gain round trip", "scipy", "scipy.signal.ss2zpk then zpk2ss (SISO)", _scipy_zeros_poles_gain_round_trip),
+        Pipeline("scipy: zero-order-hold sampling", "scipy",
                  "scipy.signal.cont2discrete(zoh) against lti-audit discretize(zoh)", _scipy_discretization("zoh")),
-        Pipeline("scipy: cont2discrete bilinear", "scipy",
+        Pipeline("scipy: bilinear sampling", "scipy",
                  "scipy.signal.cont2discrete(bilinear) against lti-audit discretize(tustin)",
                  _scipy_discretization("bilinear")),
-        Pipeline("python-control: ss2tf/tf2ss", "python-control", "control.ss2tf then control.tf2ss",
+        Pipeline("python-control: transfer-function round trip", "python-control", "control.ss2tf then control.tf2ss",
                  _control_tf),
         Pipeline("python-control: reachable form", "python-control",
                  "control.canonical_form(reachable) (SISO)", _python_control_form("reachable")),
@@ -338,10 +338,10 @@ def _build_pipelines() -> dict[str, Pipeline]:
                  "control.canonical_form(observable) (SISO)", _python_control_form("observable")),
         Pipeline("python-control: modal form", "python-control", "control.canonical_form(modal)",
                  _python_control_form("modal")),
-        Pipeline("python-control: minreal", "python-control", "control.minreal", _python_control_reduction),
-        Pipeline("python-control: sample_system zoh", "python-control",
+        Pipeline("python-control: minimal realization", "python-control", "control.minreal", _python_control_reduction),
+        Pipeline("python-control: zero-order-hold sampling", "python-control",
                  "control.sample_system(zoh) against lti-audit discretize(zoh)", _control_sample("zoh")),
-        Pipeline("python-control: sample_system tustin", "python-control",
+        Pipeline("python-control: Tustin sampling", "python-control",
                  "control.sample_system(tustin) against lti-audit discretize(tustin)",
                  _control_sample("tustin")),
         Pipeline("verdict: equivalent by construction", "verdict",

@@ -78,7 +78,7 @@ class PairComparison:
     seconds: float = 0.0
 
     def as_dict(self) -> dict[str, Any]:
-        from .evidence import _jsonable
+        from .evidence import to_jsonable
 
         return {
             "reference": self.reference,
@@ -86,7 +86,7 @@ class PairComparison:
             "verdict": self.verdict,
             "explanation": self.explanation,
             "evidence": [e.as_dict() for e in self.evidence],
-            "diagnosis": _jsonable(self.diagnosis),
+            "diagnosis": to_jsonable(self.diagnosis),
             "warnings": list(self.warnings),
             "seconds": round(self.seconds, 6),
         }

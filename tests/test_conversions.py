@@ -277,7 +277,7 @@ def test_two_poles_mcmillan_degree_is_sum_of_residue_ranks() -> None:
 
 
 # ============================================================ zeros-poles-gain -> ss
-def test_zpk_siso_against_scipy_zpk2ss() -> None:
+def test_zeros_poles_gain_siso_against_scipy() -> None:
     z = [-1.0, 0.5 + 2.0j, 0.5 - 2.0j]
     p = [-0.5, -1.0 + 3.0j, -1.0 - 3.0j, -4.0, -0.2 + 0.1j, -0.2 - 0.1j]
     k = 2.5

@@ -34,7 +34,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("source", metavar="COUNTEREXAMPLE",
                         help="a counterexample directory (or a file in it) from lti-audit stress")
     parser.add_argument("--name", default=None,
-                        help="fixture name (default: pipeline and case, e.g. scipy-ss2tf-tf2ss-case7)")
+                        help="fixture name (default: pipeline and case, e.g. scipy-transfer-function-round-trip-case7)")
     parser.add_argument("--into", default=None, metavar="DIR",
                         help=f"fixture root (default {default_fixture_root()})")
 

@@ -372,7 +372,7 @@ def _pair(z: complex) -> list[float]:
 
 def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]:
     from ..discretization import check_discretization_claim
-    from ..evidence import _jsonable
+    from ..evidence import to_jsonable
     from ..forms import check_claimed_form
     from ..inspection import inspect_model
     from ..matching import match_points
@@ -410,7 +410,7 @@ def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]
                     out.append(_claim(name, "discretization", dc_claim.method,
                                       res.relative_peak_difference, tol.rtol,
                                       "holds" if res.outcome == "holds" else "fails",
-                                      res.message, _jsonable(res.as_dict())))
+                                      res.message, to_jsonable(res.as_dict())))
                 except AuditError as exc:
                     out.append(_claim(name, "discretization", dc_claim.method, None, tol.rtol,
                                       "not_checkable", str(exc)))
@@ -433,7 +433,7 @@ def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]
             msg = (f"in the {form} form ({fc.variant})" if fc.holds else
                    f"not in the {form} form: " + "; ".join(list(fc.deviations)[:3]))
             out.append(_claim(name, label, form, fc.largest_deviation, tol.form_rtol,
-                              "holds" if fc.holds else "fails", msg, _jsonable(fc.as_dict())))
+                              "holds" if fc.holds else "fails", msg, to_jsonable(fc.as_dict())))
         if claims.dc_gain is not None and insp is not None:
             want_m = np.atleast_2d(np.asarray(claims.dc_gain, dtype=float))
             got_l = insp.properties["dc_gain"]
@@ -474,7 +474,7 @@ def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]
                             f"{mt.largest_move.second:.6g}")
                 out.append(_claim(name, "poles", claims.poles, [_pair(z) for z in got_p],
                                   tol.claim_rtol, "holds" if ok else "fails", msg,
-                                  _jsonable(mt.as_dict())))
+                                  to_jsonable(mt.as_dict())))
         if claims.bandwidth_rad_s is not None:
             try:
                 bw = bandwidth(r)
@@ -595,7 +595,7 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
     NumericalTroubleError
         A comparison could not be computed.
     """
-    from ..evidence import _jsonable
+    from ..evidence import to_jsonable
     from ..report import CAUTION, compare_report, package_version
     from ..verdict import Options, compare_models, overall_verdict
 
@@ -621,7 +621,7 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
                     + (f"; first problem: {failing[0]['model']}: {failing[0]['claim']}: "
                        f"{failing[0]['message']}" if failing else "") + ".")
     seconds = time.perf_counter() - start
-    report = _jsonable({
+    report = to_jsonable({
         "report": "audit",
         "lti_audit_version": package_version(),
         "verdict": verdict,
