@@ -310,8 +310,11 @@ class TransferEvaluator:
         try:
             # real Schur form then its complex equivalent: about twice as fast as a
             # complex QR iteration, with the same backward stability
-            t_real, z_real = scipy.linalg.schur(self._h, output="real")
-            t, z = scipy.linalg.rsf2csf(t_real, z_real)
+            from ._threads import wide_blas_threads
+
+            with wide_blas_threads(self._n):
+                t_real, z_real = scipy.linalg.schur(self._h, output="real")
+                t, z = scipy.linalg.rsf2csf(t_real, z_real)
         except (ValueError, np.linalg.LinAlgError) as exc:  # pragma: no cover
             raise NumericalTroubleError(f"Schur reduction of A failed: {exc}") from exc
         self._t: ComplexArray = np.ascontiguousarray(np.triu(t))

@@ -49,6 +49,7 @@ import numpy as np
 import scipy.linalg
 from numpy.typing import ArrayLike, NDArray
 
+from ._threads import wide_blas_threads
 from .errors import InvalidModelError, NumericalTroubleError
 from .frequency import TransferEvaluator, adaptive_frequency_grid
 from .realization import Realization
@@ -195,7 +196,8 @@ def _continuous_peak(
         iterations += 1
         try:
             ham = _hamiltonian(a, b, c, d, gamma)
-            eigs = scipy.linalg.eigvals(ham, check_finite=False, overwrite_a=True)
+            with wide_blas_threads(ham.shape[0]):
+                eigs = scipy.linalg.eigvals(ham, check_finite=False, overwrite_a=True)
         except (np.linalg.LinAlgError, ValueError, scipy.linalg.LinAlgError) as exc:
             certified = False
             note = f"Hamiltonian eigenvalue test failed at gamma={gamma:.6g}: {exc}"
