@@ -48,6 +48,7 @@ lightly damped pole over a window proportional to its bandwidth ``zeta * omega``
 from __future__ import annotations
 
 import math
+import weakref
 from collections.abc import Iterable, Sequence
 
 import numpy as np
@@ -226,6 +227,9 @@ class _BandedStored:
         return out
 
 
+_EVALUATOR_CACHE: "weakref.WeakKeyDictionary[Realization, TransferEvaluator]" = weakref.WeakKeyDictionary()
+
+
 class TransferEvaluator:
     """Evaluate ``G(lam) = C (lam I - A)^-1 B + D`` at many complex points.
 
@@ -254,6 +258,18 @@ class TransferEvaluator:
     """
 
     def __init__(self, r: Realization, *, refine: bool = True) -> None:
+        # The reductions depend only on the (immutable) realization: an audit builds
+        # evaluators of the same model many times, so the first one's work is reused.
+        try:
+            first = _EVALUATOR_CACHE.get(r)
+        except TypeError:
+            first = None
+        if first is not None:
+            self.__dict__.update(first.__dict__)
+            self.refine = bool(refine)
+            self._first = first
+            return
+        self._first = None
         self.realization = r
         self.refine = bool(refine)
         n = r.order
@@ -303,9 +319,20 @@ class TransferEvaluator:
         #: number of points refined and refinement sweeps in the last call of :meth:`at`
         self.last_refined_points = 0
         self.last_refinement_sweeps = 0
+        try:
+            _EVALUATOR_CACHE[r] = self
+        except TypeError:
+            pass
 
     def _prepare_schur(self) -> None:
         if self._schur_ready:
+            return
+        first = self._first
+        if first is not None and first._schur_ready:
+            for name in ("_t", "_t_diag", "_bs", "_cs", "_w", "_wh", "_t_norm", "_cs_norm",
+                         "_bs_norm"):
+                setattr(self, name, getattr(first, name))
+            self._schur_ready = True
             return
         try:
             # real Schur form then its complex equivalent: about twice as fast as a
@@ -328,6 +355,10 @@ class TransferEvaluator:
         self._cs_norm = float(np.linalg.norm(self._cs))
         self._bs_norm = float(np.linalg.norm(self._bs))
         self._schur_ready = True
+        if first is not None and not first._schur_ready:
+            for name in ("_t", "_t_diag", "_bs", "_cs", "_w", "_wh", "_t_norm", "_cs_norm",
+                         "_bs_norm", "_schur_ready"):
+                setattr(first, name, getattr(self, name))
 
     def _triangular_solve(self, rhs: ComplexArray, lam_cols: ComplexArray, *,
                           reversed_transpose: bool = False) -> ComplexArray:
