@@ -83,3 +83,26 @@ def test_peak_gain_of_published_models_agrees_with_slycot_ab13dd(name: str) -> N
     assert ours.lower <= float(ref) * (1 + 1e-8) and ours.upper >= float(ref) * (1 - 1e-8)
     # the polished lower bound lets few eigenvalue tests certify
     assert ours.iterations <= 3
+
+
+def test_stop_above_skips_the_eigenvalue_tests_only_when_proven() -> None:
+    # G(s) = w0^2 / (s^2 + 2 zeta w0 s + w0^2): peak 1 / (2 zeta sqrt(1 - zeta^2))
+    # (closed form, common practice)
+    import numpy as np
+
+    from audit.realization import Realization
+
+    zeta, w0 = 0.05, 3.0
+    r = Realization.from_arrays([[0.0, 1.0], [-w0**2, -2 * zeta * w0]], [[0.0], [w0**2]],
+                                [[1.0, 0.0]], [[0.0]])
+    exact = 1.0 / (2 * zeta * math.sqrt(1 - zeta**2))
+    quick = peak_gain(r, stop_above=0.5 * exact)
+    assert quick.iterations == 0 and not quick.certified and quick.upper == math.inf
+    assert 0.5 * exact < quick.lower <= exact * (1 + 1e-12)
+    full = peak_gain(r, stop_above=2.0 * exact)  # not exceeded: the usual certificate
+    assert full.certified and full.iterations >= 1
+    assert math.isclose(full.value, exact, rel_tol=1e-9)
+    # discrete time goes through the bilinear transform with the same rule
+    rd = Realization.from_arrays(np.array([[0.5]]), [[1.0]], [[1.0]], [[0.0]], 0.1)
+    q = peak_gain(rd, stop_above=1.0)  # peak 1 / (1 - 0.5) = 2 at z = 1 (closed form)
+    assert not q.certified and q.lower > 1.0 and math.isclose(q.value, 2.0, rel_tol=1e-12)
