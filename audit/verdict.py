@@ -406,6 +406,8 @@ def _escalate(
 
 # --------------------------------------------------------------- supporting checks
 def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any]]:
+    from .trade_units import differences_in_trade_units
+
     start = time.perf_counter()
     p, m = sh.g1.shape[1], sh.g1.shape[2]
     scale = sh.scale if sh.scale > 0 else 1.0
@@ -453,7 +455,8 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
         seconds=time.perf_counter() - start,
         summary=summary,
         details={"contour": sh.contour.describe(), "channels": channels, "band_rad_s": band,
-                 "grid_range_rad_s": [float(sh.grid.min(initial=0)), float(sh.grid.max(initial=0))]},
+                 "grid_range_rad_s": [float(sh.grid.min(initial=0)), float(sh.grid.max(initial=0))],
+                 "trade_units": differences_in_trade_units(sh.grid, sh.g1, sh.g2, scale=sh.scale)},
     )
     return ev, {"channels": channels, "band": band}
 
@@ -593,10 +596,7 @@ def _static_gains(sh: _Shared, opts: Options) -> Evidence:
         if diff > opts.rtol:
             failing.append("high_frequency")
         results["high_frequency"] = {"first": r1.d.tolist(), "second": r2.d.tolist(), "relative_difference": diff}
-    summary = (
-        "DC gain and high-frequency gain agree" if not failing
-        else f"{' and '.join(n.replace('_', '-') for n in failing)} gain differ(s)"
-    )
+    summary = static_gain_summary(results, failing)
     return Evidence(
         key="static_gains",
         title="DC gain and high-frequency gain",
@@ -611,6 +611,15 @@ def _static_gains(sh: _Shared, opts: Options) -> Evidence:
         summary=summary,
         details=results,
     )
+
+
+def static_gain_summary(results: dict[str, Any], failing: list[str]) -> str:
+    """One sentence on the DC and high-frequency gains, with both values when they differ."""
+    from .trade_units import describe_static_gain
+
+    parts = [describe_static_gain(name, results.get(name, {}), name in failing)
+             for name in ("dc", "high_frequency") if name in results]
+    return "; ".join(parts)
 
 
 def _similarity(sh: _Shared, opts: Options) -> Evidence:
@@ -969,7 +978,8 @@ def _explain(verdict: Verdict, decisive: Evidence, diagnosis: dict[str, Any], wa
             parts.append(diagnosis["constant_scale"]["sentence"].capitalize() + ".")
         elif diagnosis.get("moved_poles"):
             mv = diagnosis["moved_poles"][0]
-            parts.append(f"Largest pole move: {mv.get('first')} -> {mv.get('second')}.")
+            parts.append(f"Largest pole move: {fmt_complex(complex(*mv['first']))} -> "
+                         f"{fmt_complex(complex(*mv['second']))}.")
         return " ".join(parts)
     return (f"Cannot tell whether {label2} and {label1} are equivalent at tolerance {opts.rtol:.1e}: "
             f"{decisive.summary}.")
