@@ -322,7 +322,7 @@ def render_compare_text(data: dict[str, Any]) -> str:
             lines.append(f"   {mark} [{ev['outcome']:7s}] {ev['title']}: value {evidence_value_text(ev)}{tol}; "
                          f"{ev['precision']}, {ev['seconds']:.3f}s")
             lines.append(_wrap(ev["summary"], "       "))
-        trade = _trade_lines(pair, data["models"][0])
+        trade = trade_lines(pair, data["models"][0])
         if trade:
             lines.append("   in dB and degrees:")
             for line in trade:
@@ -338,7 +338,7 @@ def render_compare_text(data: dict[str, Any]) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _trade_lines(pair: dict[str, Any], reference: dict[str, Any], limit: int = 4) -> list[str]:
+def trade_lines(pair: dict[str, Any], reference: dict[str, Any], limit: int = 4) -> list[str]:
     """Per-channel gain (dB) and phase (degrees) differences of a pair that is not equivalent."""
     if pair.get("verdict") == "equivalent":
         return []

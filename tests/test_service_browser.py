@@ -60,8 +60,10 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
             shutil.rmtree(profile, ignore_errors=True)
     dom = proc.stdout
     assert proc.returncode == 0, proc.stderr[-2000:]
-    for plot in ("plot-bode-magnitude", "plot-bode-phase", "plot-pole-zero", "plot-markov"):
+    from audit.html_report import PLOT_IDS
+
+    for plot in PLOT_IDS:
         assert f'id="{plot}"' in dom
-    assert dom.count('src="data:image/png;base64,') == 4
+    assert dom.count('src="data:image/png;base64,') == len(PLOT_IDS) == 6
     assert 'id="claims"' in dom and 'id="caution"' in dom
     assert 'id="verdict"' in dom and ">equivalent<" in dom
