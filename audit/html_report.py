@@ -854,7 +854,8 @@ def render_compare_html(
            f"internal stability problem</span>" if problems else "") + "</p>",
         f'<p id="summary">{_e(data.get("summary", ""))}</p>',
         f"<p>lti-audit {_e(data.get('lti_audit_version', ''))}; tolerances: rtol = "
-        f"{_e(_num(tol.get('rtol')))}, rank_tol = {_e(_num(tol.get('rank_tol')))}, "
+        f"{_e(_num(tol.get('rtol')))}, rank_tol = "
+        f"{_e(_num(tol.get('rank_tol')) if tol.get('rank_tol') is not None else 'scale-aware default')}, "
         f"escalation budget {_e(_num(tol.get('escalation_seconds')))} s; computed in "
         f"{_e(_num(data.get('seconds')))} s.</p>",
         "</div></header><main>",
@@ -866,12 +867,9 @@ def render_compare_html(
     for pair in data.get("comparisons", []):
         lines = trade_lines(pair, (data.get("models") or [{}])[0])
         if lines:
-            trade_parts.append(f"<h3>{_e(pair.get('other'))} against {_e(pair.get('reference'))}</h3>"
+            trade_parts.append(f"<li><b>{_e(pair.get('other'))}</b> against the reference:"
                                '<ul class="trade">' + "".join(f"<li>{_e(t)}</li>" for t in lines)
-                               + "</ul>")
-    if trade_parts:
-        parts.append('<h2>Differences in dB and degrees</h2><div id="trade-units">'
-                     + "".join(trade_parts) + "</div>")
+                               + "</ul></li>")
     parts.append("<h2>Models</h2><table><tr><th>#</th><th>name</th><th>source</th><th>order</th>"
                  "<th>inputs</th><th>outputs</th><th>time domain</th></tr>")
     for k, m in enumerate(data.get("models", [])):
@@ -884,8 +882,13 @@ def render_compare_html(
     parts.append("</table>")
     if claims:
         parts.append('<h2>Claims</h2><div id="claims">' + _claims_table(claims) + "</div>")
+    parts.append("<h2>Difference to the reference</h2>")
+    if trade_parts:
+        parts.append('<div id="trade-units"><p>In dB and degrees (gain and phase of each model '
+                     'relative to the reference):</p><ul class="trade">' + "".join(trade_parts)
+                     + "</ul></div>")
+    parts.append(difference)
     parts.append("<h2>Frequency response</h2>" + bode_mag + bode_phase)
-    parts.append("<h2>Difference to the reference</h2>" + difference)
     parts.append("<h2>Step responses</h2>" + step)
     parts.append("<h2>Poles and zeros</h2>" + pz)
     parts.append("<h2>Markov parameters</h2>" + markov)

@@ -210,9 +210,14 @@ def trade_units_phrase(trade: Any, channel: dict[str, Any] | None = None,
             f"{_db(at.get('gain_second_db'))})")
     over = ch.get("over_band") or {}
     if over.get("max_gain_difference_db") is not None:
+        bits = []
+        for key, at_key, unit in (("max_gain_difference_db", "at_gain_rad_s", "dB"),
+                                  ("max_phase_difference_deg", "at_phase_rad_s", "deg")):
+            v = float(over[key])
+            bits.append(f"0 {unit}" if abs(v) < TRADE_UNITS_FLOOR
+                        else f"{_signed(v, unit)} (at {_freq(over[at_key])})")
         text += (f"; within {trade.get('band_dynamic_range_db', 60):g} dB of the peak gain at most "
-                 f"{_signed(over['max_gain_difference_db'], 'dB')} (at {_freq(over['at_gain_rad_s'])}) and "
-                 f"{_signed(over['max_phase_difference_deg'], 'deg')} (at {_freq(over['at_phase_rad_s'])})")
+                 + " and ".join(bits))
     return text
 
 

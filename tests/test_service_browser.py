@@ -67,3 +67,23 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
     assert dom.count('src="data:image/png;base64,') == len(PLOT_IDS) == 6
     assert 'id="claims"' in dom and 'id="caution"' in dom
     assert 'id="verdict"' in dom and ">equivalent<" in dom
+
+
+def test_screenshot_of_a_real_compare_run(tmp_path: Path) -> None:
+    """docs/make_screenshot.py (the README's picture) works from a real ``compare`` run."""
+    import importlib.util
+
+    from PIL import Image
+
+    script = Path(__file__).resolve().parents[1] / "docs" / "make_screenshot.py"
+    spec = importlib.util.spec_from_file_location("make_screenshot", script)
+    assert spec is not None and spec.loader is not None
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    out = module.make_screenshot(tmp_path / "page.png")
+    img = Image.open(out)
+    assert img.size == (960, 1110)  # 1280 x 1480 window at scale 0.75
+    assert out.stat().st_size < 200_000  # small enough to commit
+    # the verdict badge's red (#c1121f, our palette) is on the page: the page rendered
+    colours = {c for _, c in img.convert("RGB").getcolors(maxcolors=1 << 16)}
+    assert any(abs(r - 0xC1) < 24 and abs(g - 0x12) < 24 and abs(b - 0x1F) < 24 for r, g, b in colours)
