@@ -874,8 +874,9 @@ def compare_pair(
 
     Parameters
     ----------
-    r1, r2 : Realization
-        The reference and the model under audit.
+    r1, r2 : Realization, or a python-control / scipy.signal LTI system
+        The reference and the model under audit (foreign objects are converted by
+        :func:`audit.interop.realization_from_object`).
     options : Options, keyword-only
         Tolerances and budgets.
 
@@ -889,7 +890,10 @@ def compare_pair(
         Different input/output counts, or mixed / different time domains.
     """
     from ._threads import limited_blas_threads
+    from .interop import realization_from_object
 
+    # python-control / scipy.signal systems are accepted too (audit.interop)
+    r1, r2 = realization_from_object(r1), realization_from_object(r2)
     with limited_blas_threads():
         return _compare_pair(r1, r2, options or Options())
 
