@@ -265,6 +265,8 @@ def diagnosis_lines(diag: dict[str, Any], *, short: bool = False) -> list[str]:
         lines.append(str(diag["permutation"].get("sentence", "")))
     if "constant_scale" in diag:
         lines.append(str(diag["constant_scale"].get("sentence", "")))
+    if "reversed_coefficients" in diag:
+        lines.append(str(diag["reversed_coefficients"].get("sentence", "")))
     moved = diag.get("moved_poles") or []
     for mv in moved[:3]:
         lines.append(f"pole moved: {_point(mv.get('first'))} -> {_point(mv.get('second'))}")

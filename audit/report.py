@@ -381,6 +381,8 @@ def _diagnosis_lines(diag: dict[str, Any], reference: dict[str, Any] | None = No
         out.append(diag["permutation"]["sentence"])
     if "constant_scale" in diag:
         out.append(diag["constant_scale"]["sentence"])
+    if "reversed_coefficients" in diag:
+        out.append(diag["reversed_coefficients"]["sentence"])
     for key, what in (("moved_poles", "pole"), ("moved_zeros", "zero")):
         for mv in diag.get(key, [])[:3]:
             out.append(f"{what} moved: {_pt(mv.get('first'))} -> {_pt(mv.get('second'))} "

@@ -765,11 +765,41 @@ def _diagnose(sh: _Shared, opts: Options, grid_info: dict[str, Any], markov: Evi
     scale = _channel_scale(sh, opts)
     if scale is not None:
         diag["constant_scale"] = scale
+    reversed_ = _reciprocal_poles(sh)
+    if reversed_ is not None:
+        diag["reversed_coefficients"] = reversed_
     for ev, key in ((poles, "moved_poles"), (zeros, "moved_zeros")):
         moves = _moves(ev.details, opts)
         if moves:
             diag[key] = moves
     return diag
+
+
+RECIPROCAL_POLES_RTOL = 1e-6
+"""Poles of the second model within this relative distance of the reciprocals of the
+reference's poles get the "coefficients in ascending order?" hint."""
+
+
+def _reciprocal_poles(sh: _Shared) -> dict[str, Any] | None:
+    """A hint when the second model's poles are the reciprocals of the reference's, the
+    mark of polynomial coefficients written in ascending instead of descending powers
+    (the roots of a reversed polynomial are the reciprocals of the original's)."""
+    from .matching import match_points
+
+    p1 = sh.min1.realization.poles()
+    p2 = sh.min2.realization.poles()
+    if p1.size == 0 or p1.size != p2.size or np.any(p1 == 0):
+        return None
+    recip = match_points(1.0 / p1, p2)
+    direct = match_points(p1, p2)
+    worst_recip = max((float(pr.relative_distance) for pr in recip.pairs), default=np.inf)
+    worst_direct = max((float(pr.relative_distance) for pr in direct.pairs), default=0.0)
+    if worst_recip > RECIPROCAL_POLES_RTOL or worst_direct <= 1e3 * RECIPROCAL_POLES_RTOL:
+        return None
+    return {"largest_relative_distance": worst_recip,
+            "sentence": "the poles of the second model are the reciprocals of the reference's "
+                        f"(within {worst_recip:.1e}): were its transfer-function coefficients "
+                        "written in ascending instead of descending powers of s or z"}
 
 
 def _moves(details: dict[str, Any], opts: Options) -> list[dict[str, Any]]:
@@ -978,6 +1008,8 @@ def _explain(verdict: Verdict, decisive: Evidence, diagnosis: dict[str, Any], wa
                  f"(decided in {extended})."]
         if "permutation" in diagnosis:
             parts.append(diagnosis["permutation"]["sentence"].capitalize() + ".")
+        elif "reversed_coefficients" in diagnosis:
+            parts.append(diagnosis["reversed_coefficients"]["sentence"].capitalize() + "?")
         elif "constant_scale" in diagnosis:
             parts.append(diagnosis["constant_scale"]["sentence"].capitalize() + ".")
         elif diagnosis.get("moved_poles"):
