@@ -134,7 +134,7 @@ def _png(fig: Any) -> str:
 
     FigureCanvasAgg(fig)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100, bbox_inches="tight", facecolor="white")
+    fig.savefig(buf, format="png", dpi=100, facecolor="white")
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
@@ -151,6 +151,17 @@ def _new_figure(width: float = _FIG_WIDTH, height: float = 4.0) -> Any:
 
     fig = Figure(figsize=(width, height))
     return fig
+
+
+def _margins(fig: Any, *, top: float, bottom: float = 0.6, left: float = 0.95,
+             right: float = 0.25, hspace: float = 0.75, wspace: float = 0.8,
+             rows: int = 1, cols: int = 1) -> None:
+    """Fixed margins in inches (a measured layout engine costs seconds per figure)."""
+    w, h = fig.get_figwidth(), fig.get_figheight()
+    panel_w = max((w - left - right - wspace * (cols - 1)) / cols, 0.1)
+    panel_h = max((h - top - bottom - hspace * (rows - 1)) / rows, 0.1)
+    fig.subplots_adjust(left=left / w, right=1 - right / w, bottom=bottom / h, top=1 - top / h,
+                        wspace=wspace / panel_w, hspace=hspace / panel_h)
 
 
 def _style(ax: Any) -> None:
@@ -285,8 +296,9 @@ def _channel_title(data: Mapping[str, Any], i: int, j: int, p: int, m: int) -> s
     return f"{_plain(outs[i])}  \u2190  {_plain(ins[j])}"
 
 
-def _label(r: Realization, k: int) -> str:
-    return _plain(r.name or f"model {k + 1}")
+def _label(r: Realization, k: int, limit: int = 60) -> str:
+    text = _plain(r.name or f"model {k + 1}")
+    return text if len(text) <= limit else text[:limit - 1] + "\u2026"
 
 
 def _panel_grid(fig: Any, p: int, m: int, sharex: bool = True) -> list[list[Any]]:
@@ -358,8 +370,8 @@ def _bode_figures(models: Sequence[Realization], data: Mapping[str, Any]) -> tup
         ph_axes[0][0].set_title(f"Phase, {title}", fontsize=11)
     _shared_legend(mag_fig, handles, labels)
     _shared_legend(phase_fig, handles, labels)
-    mag_fig.tight_layout(rect=(0, 0, 1, 1 - 0.45 / mag_fig.get_figheight()))
-    phase_fig.tight_layout(rect=(0, 0, 1, 1 - 0.45 / phase_fig.get_figheight()))
+    for fig in (mag_fig, phase_fig):
+        _margins(fig, top=0.8, rows=rows, cols=cols)
     caption = (f"{w.size} frequencies from {w[0]:.3g} to {w[-1]:.3g} rad/s"
                + ("" if nyq is None else f"; dotted vertical line: Nyquist frequency {nyq:.4g} rad/s")
                + ("" if chans is None or p * m == 1 else "; one panel per channel, output \u2190 input")
@@ -452,7 +464,7 @@ def _difference_figure(models: Sequence[Realization], data: Mapping[str, Any]) -
     fig.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 1.0), ncol=2,
                fontsize=10, frameon=False)
     rows = (len(labels) + 1) // 2
-    fig.tight_layout(rect=(0, 0, 1, 1 - (0.1 + 0.22 * rows) / fig.get_figheight()))
+    _margins(fig, top=0.35 + 0.25 * rows)
     caption = ("Largest singular value of the difference of every model to the first, divided "
                "by the larger peak gain of the pair (the decisive metric, evaluated here on the "
                "plotting grid). Where it lies below the estimated rounding error of the two "
@@ -511,7 +523,7 @@ def _step_figure(models: Sequence[Realization], data: Mapping[str, Any]) -> str:
     elif rows == 1 and cols == 1:
         axes[0][0].set_title(f"Unit-step response, {_channel_title(data, 0, 0, p, m)}", fontsize=11)
     _shared_legend(fig, handles, labels)
-    fig.tight_layout(rect=(0, 0, 1, 1 - 0.45 / fig.get_figheight()))
+    _margins(fig, top=0.8, rows=rows, cols=cols)
     caption = (f"Response to a unit step on each input from rest, over {times[-1]:.4g} s "
                "(exact for a piecewise-constant input"
                + ("" if period is None else f", samples every {period:g} s") + ").")
@@ -651,7 +663,7 @@ def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) ->
                  fontsize=11)
     if ax.get_legend_handles_labels()[0]:
         ax.legend(fontsize=9.5, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
-    fig.tight_layout()
+    _margins(fig, top=0.45, right=4.3)
     caption = (f"Poles include hidden (uncontrollable or unobservable) modes; {region}. "
                "Hidden modes come from each model's staircase decomposition"
                + (" and the report's problem list" if data.get("problems") else "") + ".")
@@ -661,12 +673,13 @@ def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) ->
 
 
 def _markov_figure(data: Mapping[str, Any]) -> str:
-    fig = _new_figure(_FIG_WIDTH, 4.0)
+    fig = _new_figure(_FIG_WIDTH, 4.6)
     ax = fig.add_subplot(1, 1, 1)
     _style(ax)
     drawn = 0
     tolerance = None
     floor = 1e-18
+    below_any = False
     for k, pair in enumerate(data.get("comparisons", [])):
         ev = next((e for e in pair.get("evidence", []) if e.get("key") == "markov_parameters"), None)
         if not ev or ev.get("outcome") == "skipped":
@@ -678,27 +691,37 @@ def _markov_figure(data: Mapping[str, Any]) -> str:
             continue
         tolerance = det.get("tolerance", ev.get("tolerance"))
         idx = np.arange(rel.size)
-        ax.semilogy(idx, np.maximum(rel, floor), marker="o", color=_colour(k + 1), linewidth=1.6,
-                    label=f"{_plain(pair.get('other'))} vs {_plain(pair.get('reference'))}")
-        if err.size == rel.size:
-            ax.semilogy(idx, np.maximum(err, floor), linestyle=(0, (2, 2)), color=_colour(k + 1),
-                        alpha=0.7, label="its rounding-error estimate")
+        colour = _colour(k + 1)
+        ax.semilogy(idx, np.maximum(rel, floor), color=colour, linewidth=1.4, alpha=0.8,
+                    label=f"{_plain(pair.get('other'))} vs reference")
+        below = err >= rel if err.size == rel.size else np.zeros(rel.size, dtype=bool)
+        ax.scatter(idx[~below], np.maximum(rel[~below], floor), color=colour, s=36, zorder=3)
+        if np.any(below):
+            ax.scatter(idx[below], np.maximum(rel[below], floor), facecolors="white",
+                       edgecolors=colour, s=36, zorder=3)
+            below_any = True
         drawn += 1
     if tolerance is not None:
         ax.axhline(float(tolerance), color=_ALARM, linestyle=(0, (6, 3)), linewidth=1.4,
                    label=f"tolerance {float(tolerance):.1e}")
+    if below_any:
+        ax.scatter([], [], facecolors="white", edgecolors="#6b6458", s=36,
+                   label="open marker: below rounding (error estimate)")
     if drawn == 0:
         ax.text(0.5, 0.5, "no Markov parameter comparison in this report", ha="center",
                 va="center", transform=ax.transAxes, fontsize=11)
     else:
-        ax.legend(fontsize=9.5, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
+        handles, labels = ax.get_legend_handles_labels()
+        fig.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 1.0), ncol=2,
+                   fontsize=10, frameon=False)
     ax.set_xlabel("term k (0: D, 1: CB, 2: CAB, ...)", fontsize=10)
     ax.set_ylabel("relative difference", fontsize=10)
-    ax.set_title("Scaled Markov parameters: term-by-term relative difference", fontsize=11)
-    fig.tight_layout()
+    rows = (len(ax.get_legend_handles_labels()[1]) + 1) // 2
+    _margins(fig, top=0.35 + 0.25 * rows)
     return _img("plot-markov", fig, "Markov parameter comparison",
                 "Differences are relative to the largest term of either model, on a "
-                "frequency-scaled copy of both (values below 1e-18 drawn at 1e-18).")
+                "frequency-scaled copy of both (values below 1e-18 drawn at 1e-18). Open "
+                "markers: the difference is below its rounding-error estimate.")
 
 
 def _evidence_table(pair: Mapping[str, Any]) -> str:
