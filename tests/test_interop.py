@@ -28,12 +28,12 @@ def _closed_form(w: np.ndarray) -> np.ndarray:
 
 
 @pytest.mark.parametrize("make", [
-    pytest.param(lambda: control.tf(NUM, DEN), id="control.tf"),
-    pytest.param(lambda: control.ss(control.tf(NUM, DEN)), id="control.ss"),
-    pytest.param(lambda: scipy.signal.TransferFunction(NUM, DEN), id="scipy.tf"),
-    pytest.param(lambda: scipy.signal.TransferFunction(NUM, DEN).to_ss(), id="scipy.ss"),
+    pytest.param(lambda: control.tf(NUM, DEN), id="control-transfer-function"),
+    pytest.param(lambda: control.ss(control.tf(NUM, DEN)), id="control-state-space"),
+    pytest.param(lambda: scipy.signal.TransferFunction(NUM, DEN), id="scipy-transfer-function"),
+    pytest.param(lambda: scipy.signal.TransferFunction(NUM, DEN).to_ss(), id="scipy-state-space"),
     pytest.param(lambda: scipy.signal.ZerosPolesGain(
-        [-4.0], np.roots(DEN), 12.0), id="scipy.zpk"),
+        [-4.0], np.roots(DEN), 12.0), id="scipy.zeros-poles-gain"),
 ])
 def test_foreign_objects_keep_their_transfer_function(make) -> None:
     r = realization_from_object(make())
@@ -91,3 +91,14 @@ def test_realization_round_trips_through_both_libraries() -> None:
 def test_unsupported_objects_get_a_clear_error(obj, fragment: str) -> None:
     with pytest.raises(InvalidModelError, match=fragment):
         realization_from_object(obj())
+
+
+def test_readme_interop_example_runs() -> None:
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    section = readme.split("### Python objects you already have", 1)[1]
+    code = section.split("```python\n", 1)[1].split("```", 1)[0]
+    namespace: dict = {}
+    exec(compile(code, "README.md", "exec"), namespace)  # noqa: S102 - our own README
+    assert namespace["scipy_copy"].__class__.__name__.startswith("StateSpace")

@@ -226,3 +226,24 @@ def test_readme_and_tests_readme_agree_on_suite_duration() -> None:
     said = re.search(r"runs the whole test suite \(([^)]*)\)", readme)
     assert said is not None
     assert said.group(1) in tests_readme
+
+
+def test_pre_merge_walkthrough_quotes_a_real_run() -> None:
+    import subprocess
+    import sys
+
+    run = subprocess.run([sys.executable, str(ROOT / "docs" / "run_premerge_example.py")],
+                         capture_output=True, text=True, cwd=ROOT, timeout=600)
+    assert run.returncode == 0, run.stderr[-2000:]
+    doc = (ROOT / "docs" / "pre-merge.md").read_text()
+
+    def status_lines(text: str) -> list[str]:
+        # numbers below 1e-12 are rounding and may differ between machines
+        return [re.sub(r"\[peak rel\. diff [0-9.e+-]+\]", "", line).rstrip()
+                for line in text.splitlines()
+                if re.match(r"\s+(HOLDS|FAILS|UNCHANGED|CHANGED|INCONCLUSIVE)\s", line)]
+
+    real = status_lines(run.stdout)
+    assert len(real) == 12  # 5 claims twice, 2 changed files
+    assert real == status_lines(doc)
+    assert "(exit status 1)" in run.stdout and "(exit status 1)" in doc
