@@ -240,8 +240,8 @@ def load_model_document(path: str | Path) -> ModelDocument:
     source = str(path)
     suffix = p.suffix.lower()
     if p.is_dir():
-        raise InvalidModelError("is a directory; expected a model file (.json, .yaml, .yml, "
-                                ".toml or .npz)", source=source)
+        raise InvalidModelError("is a directory, not a model file (expected a .json, .yaml, "
+                                ".yml, .toml or .npz file)", source=source)
     if suffix not in SUPPORTED_SUFFIXES:
         raise InvalidModelError(
             f"unsupported file type {p.suffix or '(no suffix)'!r}; expected one of "

@@ -441,7 +441,7 @@ def _mat(v: Any) -> str:
     if isinstance(v, list) and len(v) == 1 and isinstance(v[0], list) and len(v[0]) == 1:
         return _num(v[0][0])
     if isinstance(v, list) and all(isinstance(row, list) for row in v):
-        return "[" + "; ".join(" ".join(f"{float(x):.6g}" for x in row) for row in v) + "]"
+        return "[" + "; ".join(" ".join(f"{float(x) + 0.0:.6g}" for x in row) for row in v) + "]"
     return json.dumps(to_jsonable(v))
 
 
