@@ -247,3 +247,16 @@ def test_pre_merge_walkthrough_quotes_a_real_run() -> None:
     assert len(real) == 12  # 5 claims twice, 2 changed files
     assert real == status_lines(doc)
     assert "(exit status 1)" in run.stdout and "(exit status 1)" in doc
+
+
+def test_discrete_model_with_only_a_negative_real_pole_is_compared(tmp_path: Path, capsys) -> None:
+    # regression: z = -0.3 made the time-response horizon NaN (real log of a negative
+    # number) and compare stopped with an internal error
+    one = _write(tmp_path / "a.json", {"name": "ringing filter", "sample_period": 0.01,
+                                       "state_space": {"a": [[-0.3]], "b": [[1.0]], "c": [[1.0]],
+                                                       "d": [[0.0]]}})
+    two = _write(tmp_path / "b.json", {"name": "ringing filter, rescaled", "sample_period": 0.01,
+                                       "state_space": {"a": [[-0.3]], "b": [[2.0]], "c": [[0.5]],
+                                                       "d": [[0.0]]}})
+    assert main(["compare", str(one), str(two)]) == 0  # x2 = 2 x1: the same system
+    assert "EQUIVALENT" in capsys.readouterr().out
