@@ -71,6 +71,7 @@ _INK = "#23262b"
 _GRID = "#ddd6c8"
 _PAPER = "#fbfaf6"
 _ALARM = "#c1121f"
+_AMBER = "#d08800"
 _FIG_WIDTH = 12.0  # inches at 100 dpi: 1200 px
 
 _CSS = """
@@ -598,7 +599,7 @@ def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) ->
     hidden = _hidden_modes(data)
     discrete = models[0].sample_period is not None
     points: list[complex] = []
-    ringed = {"hidden": False, "unstable": False}
+    ringed = {"hidden": False, "marginal": False, "unstable": False}
     for k, r in enumerate(models):
         label = _label(r, k)
         poles = r.poles()
@@ -615,11 +616,13 @@ def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) ->
             ax.scatter(zeros.real, zeros.imag, marker="o", s=70, facecolors="none", linewidths=1.6,
                        edgecolors=_colour(k), label=f"zeros: {label}", zorder=3)
         for h in hidden.get(r.name, []):
+            points.append(complex(h["re"], h["im"]))  # keep every ringed mode in view
             bad = h["unstable"] and not h["accepted"]
-            ringed["unstable" if bad else "hidden"] = True
+            marginal = not bad and h["kind"].startswith("marginal") and not h["accepted"]
+            ringed["unstable" if bad else "marginal" if marginal else "hidden"] = True
+            edge = _ALARM if bad else _AMBER if marginal else "#7a7266"
             ax.scatter([h["re"]], [h["im"]], marker="o", s=420 if bad else 300, facecolors="none",
-                       edgecolors=_ALARM if bad else "#7a7266", linewidths=2.6 if bad else 1.6,
-                       zorder=4)
+                       edgecolors=edge, linewidths=2.6 if bad or marginal else 1.6, zorder=4)
             if bad:
                 ax.annotate("UNSTABLE hidden mode", (h["re"], h["im"]), xytext=(14, 14),
                             textcoords="offset points", color=_ALARM, fontsize=10,
@@ -628,6 +631,9 @@ def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) ->
     if ringed["hidden"]:
         ax.scatter([], [], marker="o", s=300, facecolors="none", edgecolors="#7a7266",
                    linewidths=1.6, label="hidden mode (ringed)")
+    if ringed["marginal"]:
+        ax.scatter([], [], marker="o", s=300, facecolors="none", edgecolors=_AMBER,
+                   linewidths=2.6, label="marginal hidden mode (amber ring)")
     if ringed["unstable"]:
         ax.scatter([], [], marker="o", s=420, facecolors="none", edgecolors=_ALARM,
                    linewidths=2.6, label="unstable hidden mode (red ring)")
@@ -659,8 +665,8 @@ def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) ->
             ax.set_ylim(-half, half)
         region = "right half-plane (tinted): unstable"
     ax.axhline(0.0, color=_INK, linewidth=0.6, alpha=0.4)
-    ax.set_title("Pole-zero map: poles \u00d7/+, transmission zeros \u25cb, hidden modes ringed",
-                 fontsize=11)
+    ax.set_title("Pole-zero map: poles as crosses (one style per model), transmission zeros "
+                 "\u25cb, hidden modes ringed", fontsize=11)
     if ax.get_legend_handles_labels()[0]:
         ax.legend(fontsize=9.5, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     _margins(fig, top=0.45, right=4.3)

@@ -221,3 +221,19 @@ def test_equivalent_page_has_no_problem_badge_and_numbers_do_not_wrap() -> None:
     # PNG IHDR width (PNG specification, section 11.2.2): every figure at least 900 px wide
     assert min(widths) >= 900
     assert "://" not in page and "<script src" not in page  # offline: nothing fetched
+
+
+def test_problem_list_hidden_modes_are_placed_on_the_map() -> None:
+    from audit.html_report import _hidden_modes
+
+    models, data = _hidden_pair()
+    data = dict(data, problems=[{
+        "kind": "marginal_hidden_mode", "model": models[1].name, "location": [0.0, 2.0],
+        "coupling": {"inputs": 1e-9, "outputs": 1.0}, "classification": "nearly_hidden",
+        "accepted": False, "reason": None, "message": "nearly hidden mode at 2j"}])
+    modes = _hidden_modes(data)[models[1].name]
+    marginal = [h for h in modes if h["kind"] == "marginal_hidden_mode"]
+    assert len(marginal) == 1 and not marginal[0]["unstable"] and marginal[0]["im"] == 2.0
+    assert any(h["unstable"] and h["re"] == pytest.approx(0.5) for h in modes)
+    page = render_compare_html(data, models)
+    assert 'id="problem-badge"' in page and "nearly hidden mode at 2j" in page
