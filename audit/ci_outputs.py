@@ -290,7 +290,7 @@ def diagnosis_lines(diag: dict[str, Any], *, short: bool = False) -> list[str]:
 
 def _point(v: Any) -> str:
     if isinstance(v, (list, tuple)) and len(v) == 2:
-        re_, im = float(v[0]), float(v[1])
+        re_, im = float(v[0]) + 0.0, float(v[1]) + 0.0  # + 0.0: no "-0"
         if im == 0.0:
             return f"{re_:.6g}"
         return f"{re_:.6g}{'+' if im >= 0 else '-'}{abs(im):.6g}j"
