@@ -817,7 +817,8 @@ def render_compare_html(
     models : list of Realization, length ``len(data["models"])``
         The realizations of the report's models in the same order (first = reference);
         each ``A : (n_k, n_k)``, ``B : (n_k, m)``, ``C : (p, n_k)``, ``D : (p, m)``, all in
-        one time domain. Used for the Bode diagram and the pole-zero map.
+        one time domain. Used for the Bode diagram, the difference panel, the step
+        responses and the pole-zero map.
     claims : sequence of dict, optional, keyword-only
         Checked supplier claims, each with keys ``model``, ``claim``, ``claimed``,
         ``measured``, ``tolerance``, ``outcome`` and ``message`` (as produced by the audit
@@ -829,9 +830,10 @@ def render_compare_html(
     -------
     str
         A complete HTML5 document (UTF-8 text) with the figures embedded as
-        ``data:image/png;base64`` images whose ids are ``plot-bode-magnitude``,
-        ``plot-bode-phase``, ``plot-pole-zero`` and ``plot-markov``, ending with the
-        caution line :data:`audit.report.CAUTION`.
+        ``data:image/png;base64`` images whose ids are :data:`PLOT_IDS`, an element
+        ``id="problem-badge"`` when an unaccepted internal-stability problem exists (the
+        report's ``problems`` list when present, else an unstable hidden mode among the
+        pairs' warnings), and ending with the caution line :data:`audit.report.CAUTION`.
 
     Raises
     ------
