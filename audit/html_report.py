@@ -720,6 +720,9 @@ def _markov_figure(data: Mapping[str, Any]) -> str:
         handles, labels = ax.get_legend_handles_labels()
         fig.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 1.0), ncol=2,
                    fontsize=10, frameon=False)
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))  # terms are whole numbers
     ax.set_xlabel("term k (0: D, 1: CB, 2: CAB, ...)", fontsize=10)
     ax.set_ylabel("relative difference", fontsize=10)
     rows = (len(ax.get_legend_handles_labels()[1]) + 1) // 2

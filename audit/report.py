@@ -294,6 +294,8 @@ def evidence_value_text(ev: dict[str, Any]) -> str:
     det = ev.get("details") or {}
     if ev.get("outcome") == "skipped":
         return "-"
+    if str(ev.get("summary", "")).startswith("neither model has"):
+        return "none"  # no poles / zeros to match: a 0 would read as "no move"
     if ev.get("key") == "similarity" and not det.get("found", True):
         return "none found"
     if ev.get("key") == "similarity":
