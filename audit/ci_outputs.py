@@ -267,6 +267,8 @@ def diagnosis_lines(diag: dict[str, Any], *, short: bool = False) -> list[str]:
         lines.append(str(diag["constant_scale"].get("sentence", "")))
     if "reversed_coefficients" in diag:
         lines.append(str(diag["reversed_coefficients"].get("sentence", "")))
+    if "in_db_and_degrees" in diag:
+        lines.append("in dB and degrees: " + str(diag["in_db_and_degrees"].get("sentence", "")))
     moved = diag.get("moved_poles") or []
     for mv in moved[:3]:
         lines.append(f"pole moved: {_point(mv.get('first'))} -> {_point(mv.get('second'))}")

@@ -117,13 +117,7 @@ def failure_message(pair: "PairComparison") -> str:
 
     head = {"different": "models are DIFFERENT", "inconclusive": "equivalence is INCONCLUSIVE"}
     lines = [f"lti-audit: {head.get(pair.verdict, pair.verdict)}", pair.explanation]
-    from .report import trade_units_phrase
-
-    grid = next((e for e in pair.evidence if e.key == "frequency_grid"), None)
-    trade = trade_units_phrase(grid.details.get("trade_units")) if grid is not None else ""
-    if trade and pair.verdict == "different":
-        lines.append(f"in dB and degrees: {trade}")
-    diag = diagnosis_lines(pair.diagnosis)
+    diag = diagnosis_lines(pair.diagnosis)  # includes the worst channel in dB and degrees
     if diag:
         lines.append("diagnosis:")
         lines += [f"  - {d}" for d in diag]

@@ -14,6 +14,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 from .evidence import to_jsonable
+from .trade_units import TRADE_UNITS_FLOOR, describe_channel_difference as trade_units_phrase
 
 CAUTION = (
     "Caution: this verdict is numerical evidence within the stated tolerances, not a "
@@ -180,71 +181,6 @@ def _with_trade_units(pair: Any) -> str:
     grid = next((e for e in pair.evidence if e.key == "frequency_grid"), None)
     phrase = trade_units_phrase(grid.details.get("trade_units") if grid is not None else None)
     return text + (f" In dB and degrees: {phrase}." if phrase else "")
-
-
-def trade_units_phrase(trade: Any, channel: dict[str, Any] | None = None,
-                       names: dict[str, Any] | None = None) -> str:
-    """"+0.172 dB and +1.2 deg at 3.16 rad/s (largest difference)" for the worst channel.
-
-    ``trade`` is the ``trade_units`` entry of the frequency-grid evidence (see
-    :func:`audit.trade_units.differences_in_trade_units`); ``channel`` picks one of its
-    channels (default: the one with the largest absolute difference).
-    """
-    if not isinstance(trade, dict) or not trade.get("channels"):
-        return ""
-    chans = trade["channels"]
-    ch = channel or max(chans, key=lambda c: c["at_worst"].get("absolute_difference", 0.0))
-    at = ch["at_worst"]
-    where = ""
-    if len(chans) > 1:
-        outs = (names or {}).get("output_names")
-        ins = (names or {}).get("input_names")
-        where = f"channel {_signal(outs, ch['output'])} <- {_signal(ins, ch['input'])}: "
-    w = _freq(at.get("frequency_rad_s"))
-    if at.get("gain_difference_db") is None:
-        g1, g2 = at.get("gain_first_db"), at.get("gain_second_db")
-        return (where + f"gain {_db(g1)} vs {_db(g2)} at {w} (one response is zero there)")
-    text = (where + f"{_signed(at['gain_difference_db'], 'dB')} and "
-            f"{_signed(at['phase_difference_deg'], 'deg')} at {w} "
-            f"(where |G1 - G2| peaks; gain {_db(at.get('gain_first_db'))} vs "
-            f"{_db(at.get('gain_second_db'))})")
-    over = ch.get("over_band") or {}
-    if over.get("max_gain_difference_db") is not None:
-        bits = []
-        for key, at_key, unit in (("max_gain_difference_db", "at_gain_rad_s", "dB"),
-                                  ("max_phase_difference_deg", "at_phase_rad_s", "deg")):
-            v = float(over[key])
-            bits.append(f"0 {unit}" if abs(v) < TRADE_UNITS_FLOOR
-                        else f"{_signed(v, unit)} (at {_freq(over[at_key])})")
-        text += (f"; within {trade.get('band_dynamic_range_db', 60):g} dB of the peak gain at most "
-                 + " and ".join(bits))
-    return text
-
-
-TRADE_UNITS_FLOOR = 1e-9
-"""dB and degree differences smaller than this are printed as 0: they correspond to a
-relative difference near 1e-10, far below any tolerance, i.e. rounding (common practice,
-no source)."""
-
-
-def _signed(x: Any, unit: str) -> str:
-    v = float(x) + 0.0
-    if abs(v) < TRADE_UNITS_FLOOR:
-        return f"0 {unit}"
-    return f"{v:+.3g} {unit}"
-
-
-def _db(x: Any) -> str:
-    return "-inf dB (zero)" if x is None else f"{float(x) + 0.0:.4g} dB"
-
-
-def _freq(w: Any) -> str:
-    if w is None:
-        return "-"
-    w = float(w)
-    if math.isinf(w):
-        return "the high-frequency limit"
-    return "DC" if w == 0.0 else f"{w:.4g} rad/s"
 
 
 def inspect_report(r: Any, source: str, insp: Any) -> dict[str, Any]:

@@ -8,8 +8,8 @@ input/output channel:
 * at the frequency where ``|G1 - G2|`` of the channel is largest: both gains in dB, the
   gain difference ``20 log10(|G2| / |G1|)`` in dB and the phase difference
   ``arg(G2 / G1)`` in degrees (wrapped to (-180, 180], so no unwrapping is involved);
-* over the band where the channel matters, i.e. where the larger of ``|G1|`` and ``|G2|``
-  is within :data:`BAND_DYNAMIC_RANGE_DB` of the larger peak gain of the two models: the
+* over the band where the channel matters, i.e. where both ``|G1|`` and ``|G2|`` are
+  within :data:`BAND_DYNAMIC_RANGE_DB` of the larger peak gain of the two models: the
   largest gain difference in dB and the largest phase difference in degrees, each with
   its frequency.
 
@@ -25,10 +25,11 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["BAND_DYNAMIC_RANGE_DB", "differences_in_trade_units"]
+__all__ = ["BAND_DYNAMIC_RANGE_DB", "describe_channel_difference", "describe_static_gain",
+           "differences_in_trade_units"]
 
 BAND_DYNAMIC_RANGE_DB = 60.0
-"""Frequencies where both models' gain lies more than this many dB below the larger peak
+"""Frequencies where either model's gain lies more than this many dB below the larger peak
 gain do not enter the band figures: there a ratio of two tiny gains says nothing a
 practitioner acts on (common practice, no source: 60 dB is the usual plotting range)."""
 
@@ -116,7 +117,9 @@ def differences_in_trade_units(
                 if ga > 0.0 and gb > 0.0:
                     at["gain_difference_db"] = 20.0 * math.log10(gb / ga)
                     at["phase_difference_deg"] = _phase_deg(complex(b[k] / a[k]))
-                band = good & (np.maximum(np.abs(a), np.abs(b)) >= floor) & (np.abs(a) > 0) & (np.abs(b) > 0)
+                # both gains must be in range: a ratio against a near-zero gain (a zero on
+                # the frequency axis) is no gain change a practitioner acts on
+                band = good & (np.minimum(np.abs(a), np.abs(b)) >= floor) & (np.abs(a) > 0) & (np.abs(b) > 0)
                 over: dict[str, Any] = {"max_gain_difference_db": None, "at_gain_rad_s": None,
                                         "max_phase_difference_deg": None, "at_phase_rad_s": None}
                 if np.any(band):
@@ -195,3 +198,82 @@ def describe_static_gain(name: str, entry: dict[str, Any], differs: bool) -> str
         db = 20.0 * math.log10(abs(b[0, 0] / a[0, 0]))
         text += f" ({db:+.3g} dB{', sign reversed' if a[0, 0] * b[0, 0] < 0 else ''})"
     return text
+
+
+def describe_channel_difference(trade: Any, channel: dict[str, Any] | None = None,
+                       names: dict[str, Any] | None = None) -> str:
+    """One sentence on a channel's difference in dB and degrees (default: the worst channel).
+
+    ``trade`` is the output of :func:`differences_in_trade_units` (the ``trade_units``
+    entry of the frequency-grid evidence); ``channel`` picks one of its channels (default:
+    the one with the largest absolute difference); ``names`` may hold ``output_names`` and
+    ``input_names`` (as in a report's model entry).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = differences_in_trade_units(np.array([0.0]), np.array([[[1.0 + 0j]]]),
+    ...                                np.array([[[1.02 + 0j]]]), scale=1.0)
+    >>> describe_channel_difference(t)[:40]
+    '+0.172 dB and 0 deg at DC (where |G1 - G'
+    """
+    if not isinstance(trade, dict) or not trade.get("channels"):
+        return ""
+    chans = trade["channels"]
+    ch = channel or max(chans, key=lambda c: c["at_worst"].get("absolute_difference", 0.0))
+    at = ch["at_worst"]
+    where = ""
+    if len(chans) > 1:
+        outs = (names or {}).get("output_names")
+        ins = (names or {}).get("input_names")
+        where = f"channel {_signal_text(outs, ch['output'])} <- {_signal_text(ins, ch['input'])}: "
+    w = _freq_text(at.get("frequency_rad_s"))
+    if at.get("gain_difference_db") is None:
+        g1, g2 = at.get("gain_first_db"), at.get("gain_second_db")
+        return (where + f"gain {_db_text(g1)} vs {_db_text(g2)} at {w} (one response is zero there)")
+    text = (where + f"{_signed(at['gain_difference_db'], 'dB')} and "
+            f"{_signed(at['phase_difference_deg'], 'deg')} at {w} "
+            f"(where |G1 - G2| peaks; gain {_db_text(at.get('gain_first_db'))} vs "
+            f"{_db_text(at.get('gain_second_db'))})")
+    over = ch.get("over_band") or {}
+    if over.get("max_gain_difference_db") is not None:
+        bits = []
+        for key, at_key, unit in (("max_gain_difference_db", "at_gain_rad_s", "dB"),
+                                  ("max_phase_difference_deg", "at_phase_rad_s", "deg")):
+            v = float(over[key])
+            bits.append(f"0 {unit}" if abs(v) < TRADE_UNITS_FLOOR
+                        else f"{_signed(v, unit)} (at {_freq_text(over[at_key])})")
+        text += (f"; where both gains are within {trade.get('band_dynamic_range_db', 60):g} dB of "
+                 "the peak gain, at most "
+                 + " and ".join(bits))
+    return text
+
+
+TRADE_UNITS_FLOOR = 1e-9
+"""dB and degree differences smaller than this are printed as 0: they correspond to a
+relative difference near 1e-10, far below any tolerance, i.e. rounding (common practice,
+no source)."""
+
+
+def _signal_text(names: Any, index: int) -> str:
+    return f"{index} ({names[index]})" if names and index < len(names) else str(index)
+
+
+def _signed(x: Any, unit: str) -> str:
+    v = float(x) + 0.0
+    if abs(v) < TRADE_UNITS_FLOOR:
+        return f"0 {unit}"
+    return f"{v:+.3g} {unit}"
+
+
+def _db_text(x: Any) -> str:
+    return "-inf dB (zero)" if x is None else f"{float(x) + 0.0:.4g} dB"
+
+
+def _freq_text(w: Any) -> str:
+    if w is None:
+        return "-"
+    w = float(w)
+    if math.isinf(w):
+        return "the high-frequency limit"
+    return "DC" if w == 0.0 else f"{w:.4g} rad/s"

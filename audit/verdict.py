@@ -433,6 +433,7 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
             )
     total = _sigma_max(sh.g1 - sh.g2)
     band = _band(sh.grid, total)
+    trade = differences_in_trade_units(sh.grid, sh.g1, sh.g2, scale=sh.scale)
     differing = [c for c in channels if c["differs"]]
     worst = max(channels, key=lambda c: c["relative_difference"]) if channels else None
     summary = (
@@ -456,9 +457,9 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
         summary=summary,
         details={"contour": sh.contour.describe(), "channels": channels, "band_rad_s": band,
                  "grid_range_rad_s": [float(sh.grid.min(initial=0)), float(sh.grid.max(initial=0))],
-                 "trade_units": differences_in_trade_units(sh.grid, sh.g1, sh.g2, scale=sh.scale)},
+                 "trade_units": trade},
     )
-    return ev, {"channels": channels, "band": band}
+    return ev, {"channels": channels, "band": band, "trade_units": trade}
 
 
 def _band(grid: NDArray[np.float64], values: NDArray[np.float64]) -> list[float] | None:
@@ -757,6 +758,12 @@ def _diagnose(sh: _Shared, opts: Options, grid_info: dict[str, Any], markov: Evi
         for c in grid_info["channels"] if c["differs"]
     ]
     diag["band_of_largest_discrepancy_rad_s"] = grid_info["band"]
+    if diag["differing_channels"]:
+        from .trade_units import describe_channel_difference
+
+        sentence = describe_channel_difference(grid_info.get("trade_units"))
+        if sentence:  # the worst channel in dB and degrees, for every diagnosis reader
+            diag["in_db_and_degrees"] = {"sentence": sentence}
     if markov.outcome != "skipped":
         diag["first_differing_markov_parameter"] = markov.details.get("first_differing_index")
     perm = _permutation(sh, opts)

@@ -75,9 +75,14 @@ def test_phase_difference_in_degrees_matches_an_independent_evaluation() -> None
     assert at["gain_difference_db"] == pytest.approx(-10 * math.log10(1 + wk * wk / 4), abs=1e-9)
     assert at["phase_difference_deg"] == pytest.approx(-math.degrees(math.atan(wk / 2)), abs=1e-9)
     over = out["channels"][0]["over_band"]
-    # the band is where either gain is within 60 dB of the peak (1): all of this grid, so the
-    # largest phase lag is at the top frequency 10 rad/s: -atan(5) = -78.69 deg
-    assert over["max_phase_difference_deg"] == pytest.approx(-math.degrees(math.atan(5.0)), abs=1e-9)
+    # the band is where both gains are within 60 dB of the peak gain 1 (closed forms of the
+    # two magnitudes); the phase lag grows with w, so it is largest at the band's top
+    g1_mag = 1 / np.sqrt(1 + 1600 * w**2)
+    g2_mag = g1_mag / np.sqrt(1 + 0.25 * w**2)
+    top = w[(g1_mag >= 1e-3) & (g2_mag >= 1e-3)].max()
+    assert 5.0 < top < 10.0  # the lower gain leaves the band before the grid ends
+    assert over["max_phase_difference_deg"] == pytest.approx(-math.degrees(math.atan(top / 2)), abs=1e-9)
+    assert over["at_phase_rad_s"] == top
 
 
 def test_text_report_has_no_minus_zero_no_empty_heading_and_names_every_model() -> None:
