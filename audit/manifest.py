@@ -709,8 +709,8 @@ def coordinate_change(r1: Any, r2: Any, pair: Any) -> tuple[CoordinateChange, st
                     f"not minimal and their hidden modes differ ({listed(hidden[0])} vs "
                     f"{listed(hidden[1])}); the transfer function is the same", True)
         return ("transfer_only", f"the {' and '.join(which) or 'models'} realization(s) are "
-                "not minimal (hidden modes), so 'only state coordinates changed' is not "
-                "decided; the transfer function is the same", False)
+                "not minimal and their hidden modes agree, so only the minimal parts could be "
+                "related", False)
     sim = _evidence(pair, "similarity")
     if sim is not None and sim.outcome == "info" and bool(sim.details.get("found")):
         cond = sim.details.get("condition_number")
