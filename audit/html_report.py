@@ -26,6 +26,9 @@ no network:
   parameters ``D, CB, CAB, ...`` of every pair, with the tolerance, read from the
   report's ``markov_parameters`` evidence.
 
+Clicking a figure opens it at its stored resolution (1.5x the page width) in an overlay;
+the few lines of inline script that do it need no network and no library.
+
 No numerical method of its own is implemented here: responses, error estimates, zeros,
 step responses and the frequency grid come from :mod:`audit.frequency`,
 :mod:`audit.verdict`, :mod:`audit.structure` and :mod:`audit.timedomain`. Every string
@@ -72,7 +75,8 @@ _GRID = "#ddd6c8"
 _PAPER = "#fbfaf6"
 _ALARM = "#c1121f"
 _AMBER = "#d08800"
-_FIG_WIDTH = 12.0  # inches at 100 dpi: 1200 px
+_FIG_WIDTH = 12.0  # inches: shown 1200 px wide on the page
+_DPI = 150  # 1800 px stored: the zoomed view (click a figure) shows 1.5x the detail
 
 _CSS = """
 :root{--ink:#23262b;--muted:#5d6470;--rule:#ddd6c8;--paper:#fbfaf6;--teal:#0f6b5f;
@@ -106,6 +110,21 @@ img.plot{width:100%;max-width:1200px;height:auto;border:1px solid var(--rule);ba
 .caution{margin-top:2em;padding:.8em 1em;border-left:4px solid var(--amber);background:#fff8e6}
 .warn{border-left:4px solid var(--alarm);padding:.3em .8em;background:#fdf0f0}
 code{font-size:.95em}
+img.plot{cursor:zoom-in}
+#zoom{position:fixed;inset:0;background:rgba(20,22,26,.88);overflow:auto;display:none;
+z-index:10;cursor:zoom-out}
+#zoom img{display:block;margin:1.5em auto;max-width:none;background:#fff}
+#zoom p{color:#eee;text-align:center;font-size:.9em;margin:.8em}
+"""
+
+# A few lines of inline script, no network: click a figure to see it at its stored
+# resolution in an overlay (scroll to pan), click again or press Escape to close.
+_ZOOM_SCRIPT = """
+(function(){var z=document.getElementById('zoom'),im=z.querySelector('img');
+document.addEventListener('click',function(e){var t=e.target;
+if(t.classList&&t.classList.contains('plot')){im.src=t.src;im.alt=t.alt;z.style.display='block';
+z.scrollTop=0;z.scrollLeft=0;e.preventDefault();}else if(z.contains(t)){z.style.display='none';}});
+document.addEventListener('keydown',function(e){if(e.key==='Escape'){z.style.display='none';}});})();
 """
 
 
@@ -135,7 +154,7 @@ def _png(fig: Any) -> str:
 
     FigureCanvasAgg(fig)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100, facecolor="white")
+    fig.savefig(buf, format="png", dpi=_DPI, facecolor="white")
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
@@ -937,5 +956,8 @@ def render_compare_html(
             parts.append(f'<p class="warn"><b>Warning:</b> {_e(w)}</p>')
         parts.append(_evidence_table(pair))
     parts.append(f'<p class="caution" id="caution">{_e(CAUTION)}</p>')
-    parts.append("</main></body></html>")
+    parts.append('</main><div id="zoom" role="dialog" aria-label="enlarged figure">'
+                 "<p>Enlarged figure: scroll to pan; click or press Escape to close.</p>"
+                 '<img alt=""></div>')
+    parts.append(f'<script id="zoom-script">{_ZOOM_SCRIPT}</script></body></html>')
     return "\n".join(parts) + "\n"
