@@ -24,7 +24,6 @@ from __future__ import annotations
 import json
 import os
 import re
-import tempfile
 import tomllib
 from collections.abc import Mapping
 from pathlib import Path
@@ -469,12 +468,14 @@ def render_model_document(doc: ModelDocument) -> str:
 
 def dump_model_document(doc: ModelDocument, path: str | Path, *,
                         overwrite: bool = False) -> Path:
-    """Write a model document as JSON, atomically.
+    """Write a model document as JSON, atomically, under the tool's output rule.
 
-    The text goes to a temporary file in the target directory, is flushed to disk, and
-    then takes the target name (``os.link`` when not overwriting, so an existing file is
-    never clobbered even by a concurrent writer; ``os.replace`` otherwise). Floats are
-    written with ``repr``, so loading the file gives back the same numbers bit for bit.
+    See :func:`audit.safe_output.write_output_file`: the text goes to a temporary file
+    in the target directory, is flushed to disk, and then takes the target name
+    (``os.link`` when not overwriting, so an existing file is never clobbered even by a
+    concurrent writer; ``os.replace`` otherwise); a symbolic link is never written
+    through. Floats are written with ``repr``, so loading the file gives back the same
+    numbers bit for bit.
 
     Parameters
     ----------
@@ -493,35 +494,13 @@ def dump_model_document(doc: ModelDocument, path: str | Path, *,
     ------
     FileExistsError
         ``path`` exists and ``overwrite`` is false.
-    OSError
-        The directory does not exist or is not writable.
+    audit.safe_output.OutputRefusedError
+        ``path`` is a link or a directory, or its folder is missing or not writable.
     """
+    from .safe_output import write_output_file
+
     target = Path(path)
-    text = render_model_document(doc)
-    if not overwrite and target.exists():
+    if not overwrite and os.path.lexists(target):
         raise FileExistsError(f"{target}: already exists; pass overwrite=True to replace it")
-    fd, tmp_name = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".tmp")
-    tmp = Path(tmp_name)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        if overwrite:
-            os.replace(tmp, target)
-        else:
-            try:
-                os.link(tmp, target)  # atomic, fails if the target appeared meanwhile
-            except FileExistsError:
-                raise FileExistsError(
-                    f"{target}: already exists; pass overwrite=True to replace it") from None
-            except OSError:  # file system without hard links
-                if target.exists():
-                    raise FileExistsError(
-                        f"{target}: already exists; pass overwrite=True to replace it"
-                    ) from None
-                os.replace(tmp, target)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-    return target
+    return write_output_file(target, render_model_document(doc), overwrite=overwrite,
+                             flag="overwrite=True")
