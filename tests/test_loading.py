@@ -293,10 +293,10 @@ def test_unreadable_file(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Non
     # chmod 0 does not stop root, so the refusal is simulated
     path = write(tmp_path, "secret.json", "{}")
 
-    def refuse(self: Path) -> bytes:
+    def refuse(*args: object, **kwargs: object) -> int:
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr(Path, "read_bytes", refuse)
+    monkeypatch.setattr(os, "open", refuse)
     with pytest.raises(InvalidModelError, match=r"secret\.json: cannot be read \(Permission denied\)"):
         load_model_document(path)
 
@@ -389,7 +389,7 @@ def test_npz_pickled_object_array_is_refused(tmp_path: Path) -> None:
     path = tmp_path / "valve.npz"
     np.savez(path, a=np.array([[1.0]]), b=np.array([[1.0]]), c=np.array([[1.0]]),
              d=np.array([[{"x": 1}]], dtype=object))
-    with pytest.raises(InvalidModelError, match="array 'd' cannot be read without pickle"):
+    with pytest.raises(InvalidModelError, match="array 'd' holds Python objects; pickled arrays are refused"):
         load_model_document(path)
 
 
