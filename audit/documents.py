@@ -944,6 +944,21 @@ class ModelDocument(BaseModel):
     def is_discrete(self) -> bool:
         return self.sample_period is not None
 
+    @property
+    def stated_order(self) -> int:
+        """The number of states the document states, before any conversion.
+
+        State space: the order; transfer function: the sum of the denominator degrees;
+        zeros-poles-gain: the number of poles. A conversion never yields more states, so
+        size limits are checked on this number first.
+        """
+        if self.state_space is not None:
+            return self.state_space.order
+        if self.transfer_function is not None:
+            return sum(len(den) - 1 for row in self.transfer_function.denominator for den in row)
+        assert self.zeros_poles_gain is not None
+        return sum(len(ps) for row in self.zeros_poles_gain.poles for ps in row)
+
 
 # ------------------------------------------------------------- error translation
 def _model_at(loc: Sequence[str | int]) -> type[BaseModel] | None:

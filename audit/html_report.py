@@ -86,7 +86,10 @@ def _num(value: Any) -> str:
 def _png(fig: Any) -> str:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+    from .safe_output import plain_plot_labels
+
     FigureCanvasAgg(fig)
+    plain_plot_labels(fig)  # names are plain text, never math for the plotting library
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=96, bbox_inches="tight")
     return base64.b64encode(buf.getvalue()).decode("ascii")
