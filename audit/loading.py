@@ -184,6 +184,9 @@ def _no_duplicate_keys(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
     return out
 
 
+#: Deepest nesting of lists and mappings read from YAML (checked while composing).
+MAX_NESTING = 64
+
 _TOO_DEEP = ("{fmt} nesting is too deep to read (lists or objects nested about a thousand "
              "levels or more); a model document nests at most 5 levels")
 
@@ -237,6 +240,19 @@ class _StrictYamlLoader(yaml.reader.Reader, yaml.scanner.Scanner, yaml.parser.Pa
                         yaml.composer.Composer, yaml.constructor.SafeConstructor,
                         _CoreSchemaResolver):
     """Safe loader with YAML 1.2 core-schema scalars; rejects duplicate keys."""
+
+    def compose_node(self, parent: Any, index: Any) -> Any:
+        # A model document nests a few levels; stop deep nesting before the recursive
+        # composer spends seconds and the interpreter's stack on it.
+        self._depth = getattr(self, "_depth", 0) + 1
+        try:
+            if self._depth > MAX_NESTING:
+                raise yaml.composer.ComposerError(
+                    None, None, f"nesting deeper than {MAX_NESTING} levels (a model document "
+                    "nests at most 5)", self.peek_event().start_mark)
+            return super().compose_node(parent, index)
+        finally:
+            self._depth -= 1
 
     def __init__(self, stream: str) -> None:
         yaml.reader.Reader.__init__(self, stream)

@@ -146,8 +146,8 @@ def write_output_file(path: str | Path, text: str | bytes, *, overwrite: bool = 
         a file that appeared while writing.
     """
     target = Path(path)
-    guarded = {Path(p).resolve() for p in protected}
-    if target.resolve() in guarded:
+    guarded = {os.path.realpath(p) for p in protected}  # realpath: no error on link loops
+    if os.path.realpath(target) in guarded:
         raise OutputRefusedError(f"{path}: refusing to overwrite an input of this run (a "
                                  "model file or the manifest); choose another output path")
     check_new_output(target, overwrite=overwrite, create_parents=create_parents, flag=flag)
@@ -239,9 +239,12 @@ def path_inside(root: str | Path, relative: str, *, what: str = "path") -> Path:
             or "\\" in relative:
         raise OutputRefusedError(f"{what}: {relative!r} leaves its folder {root} (absolute "
                                  "paths and '..' are not allowed)")
-    base = Path(root).resolve()
     full = Path(root) / pure
-    resolved = full.resolve()
+    try:
+        base = Path(root).resolve()
+        resolved = full.resolve()
+    except (OSError, RuntimeError) as exc:  # a symbolic link loop
+        raise OutputRefusedError(f"{what}: {relative!r} cannot be resolved ({exc})") from None
     if resolved != base and base not in resolved.parents:
         raise OutputRefusedError(f"{what}: {relative!r} resolves to {resolved}, outside its "
                                  f"folder {base} (a symbolic link points out of it)")
