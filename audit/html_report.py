@@ -68,7 +68,9 @@ code{font-size:.95em}
 
 # --------------------------------------------------------------------- helpers
 def _e(value: Any) -> str:
-    return html.escape(str(value), quote=True)
+    from .safe_output import xml_text  # no control characters or escape sequences
+
+    return html.escape(xml_text(str(value)), quote=True)
 
 
 def _num(value: Any) -> str:
