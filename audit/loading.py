@@ -6,16 +6,21 @@ File formats (chosen by the file name's suffix):
   :mod:`json` module would silently keep the last one); ``NaN``/``Infinity`` tokens are
   parsed and then rejected by validation with their field path.
 * ``.yaml`` / ``.yml`` -- YAML (Ben-Kiki, Evans, döt Net, "YAML Ain't Markup Language
-  version 1.2", 2009), read with PyYAML's safe loader plus two fixes: duplicate keys are
-  rejected, and exponent floats without a dot (``1e-3``) are numbers, as in YAML 1.2
-  (PyYAML follows YAML 1.1 and would read them as strings). One document per file.
+  version 1.2", 2009) with the 1.2 **core schema** (section 10.3 of revision 1.2.2):
+  PyYAML's safe constructors with our own resolver, so ``1:30``, ``yes``, ``0b101``,
+  ``1_000`` and dates are strings and ``1e-3`` is a number, as a reader of the file
+  expects (PyYAML alone follows YAML 1.1). Duplicate keys are rejected; nesting deeper
+  than :data:`MAX_NESTING` levels is refused while composing. One document per file.
 * ``.toml`` -- TOML v1.0.0 (T. Preston-Werner, 2021) via :mod:`tomllib`. TOML has no null:
   leave ``sample_period`` out of a TOML file for continuous time.
 * ``.npz`` -- a NumPy archive with 2-D arrays ``a``, ``b``, ``c``, ``d`` and an optional
   scalar ``sample_period`` (absent: continuous time); the model name is the file name
   without its suffix. Pickled objects are refused.
 
-No numerical method is implemented here. Every problem with a file becomes an
+Inputs are read only from regular files, below :func:`max_input_bytes` (checked before
+reading); the arrays of an ``.npz`` archive below :func:`max_array_bytes` once
+decompressed (checked from their headers). No numerical method is implemented here.
+Every problem with a file becomes an
 :class:`~audit.errors.InvalidModelError` whose message starts with the file name.
 """
 
