@@ -67,7 +67,7 @@ def run(args: argparse.Namespace) -> int:
     source = realization_from_document(doc)
     source = source.with_name(doc.name)
     conversion = FORMS[args.form](source)
-    new = conversion.realization.with_name(args.name or f"{doc.name} ({args.form} form)")
+    new = conversion.realization.with_name(args.name or f"{doc.name[:170]} ({args.form} form)")
     pair = compare_pair(source, new, options=Options(rtol=rtol))
     decisive = next(e for e in pair.evidence if e.decisive)
     with open(args.model, "rb") as fh:
