@@ -27,7 +27,9 @@ no network:
   report's ``markov_parameters`` evidence.
 
 Clicking a figure opens it at its stored resolution (1.5x the page width) in an overlay;
-the few lines of inline script that do it need no network and no library.
+the few lines of inline script that do it need no network and no library. Where a
+Content-Security-Policy forbids scripts (the audit service sends one), the page is the
+same without the enlarged view.
 
 No numerical method of its own is implemented here: responses, error estimates, zeros,
 step responses and the frequency grid come from :mod:`audit.frequency`,
@@ -110,7 +112,7 @@ img.plot{width:100%;max-width:1200px;height:auto;border:1px solid var(--rule);ba
 .caution{margin-top:2em;padding:.8em 1em;border-left:4px solid var(--amber);background:#fff8e6}
 .warn{border-left:4px solid var(--alarm);padding:.3em .8em;background:#fdf0f0}
 code{font-size:.95em}
-img.plot{cursor:zoom-in}
+body.zoomable img.plot{cursor:zoom-in}
 #zoom{position:fixed;inset:0;background:rgba(20,22,26,.88);overflow:auto;display:none;
 z-index:10;cursor:zoom-out}
 #zoom img{display:block;margin:1.5em auto;max-width:none;background:#fff}
@@ -121,6 +123,7 @@ z-index:10;cursor:zoom-out}
 # resolution in an overlay (scroll to pan), click again or press Escape to close.
 _ZOOM_SCRIPT = """
 (function(){var z=document.getElementById('zoom'),im=z.querySelector('img');
+document.body.classList.add('zoomable');
 document.addEventListener('click',function(e){var t=e.target;
 if(t.classList&&t.classList.contains('plot')){im.src=t.src;im.alt=t.alt;z.style.display='block';
 z.scrollTop=0;z.scrollLeft=0;e.preventDefault();}else if(z.contains(t)){z.style.display='none';}});
@@ -130,7 +133,9 @@ document.addEventListener('keydown',function(e){if(e.key==='Escape'){z.style.dis
 
 # --------------------------------------------------------------------- helpers
 def _e(value: Any) -> str:
-    return html.escape(str(value), quote=True)
+    from .safe_output import xml_text  # no control characters or escape sequences
+
+    return html.escape(xml_text(str(value)), quote=True)
 
 
 def _num(value: Any) -> str:
@@ -152,7 +157,10 @@ def _colour(k: int) -> str:
 def _png(fig: Any) -> str:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+    from .safe_output import plain_plot_labels
+
     FigureCanvasAgg(fig)
+    plain_plot_labels(fig)  # names are plain text, never math for the plotting library
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=_DPI, facecolor="white")
     return base64.b64encode(buf.getvalue()).decode("ascii")
@@ -196,8 +204,9 @@ def _style(ax: Any) -> None:
 
 
 def _plain(text: str) -> str:
-    """A user's name as plain text for matplotlib (no mathtext interpretation of $)."""
-    return str(text).replace("$", r"\$")
+    """A user's name for a figure label; :func:`_png` turns off math-text parsing of every
+    label (audit.safe_output.plain_plot_labels), so ``$`` needs no escaping here."""
+    return str(text)
 
 
 def _plot_grid(models: Sequence[Realization]) -> NDArray[np.float64]:
