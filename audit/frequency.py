@@ -241,12 +241,19 @@ class _BandedStored:
             base[l + u - off, i0 + off:i1 + off] = -self.band_rows[i0:i1, t]
         diag_row = l + u
         b = self.b.astype(complex)
-        out = np.empty((lam.shape[0], p, m), dtype=complex)
-        for idx, v in enumerate(lam):
-            ab = base.copy()
-            ab[diag_row] += v
-            _, _, x, info = zgbsv(l, u, ab, b, overwrite_ab=1, overwrite_b=0)
-            out[idx] = self.c @ x + d if info == 0 else np.nan
+        k = lam.shape[0]
+        out = np.empty((k, p, m), dtype=complex)
+        per = max(1, _CHUNK_ENTRIES // max(1, n * max(m, 1)))
+        for start in range(0, k, per):
+            stop = min(k, start + per)
+            xs = np.empty((stop - start, n, m), dtype=complex)
+            for idx in range(start, stop):
+                ab = base.copy()
+                ab[diag_row] += lam[idx]
+                _, _, x, info = zgbsv(l, u, ab, b, overwrite_ab=1, overwrite_b=0)
+                xs[idx - start] = x if info == 0 else np.nan
+            # one product for the whole chunk instead of one small product per point
+            out[start:stop] = np.matmul(self.c, xs) + d
         return out
 
 
