@@ -57,6 +57,10 @@ def build_parser() -> argparse.ArgumentParser:
     cmp_.add_argument("--escalation-seconds", type=seconds, default=ESCALATION_SECONDS,
                       help="time budget per pair for extended-precision re-evaluation "
                       f"(default {ESCALATION_SECONDS:g}; 0 disables it)")
+    cmp_.add_argument("--accept-sampled", action="store_true",
+                      help="for sparse models above the dense route's size: accept 'no "
+                      "difference on the sampled frequency grid' as 'equivalent on the sampled "
+                      "grid' (default: inconclusive, as nothing is bounded between grid points)")
     ins = sub.add_parser("inspect", help="report one model's properties and problems")
     ins.add_argument("model", metavar="MODEL")
     ins.add_argument("--format", choices=("text", "json"), default="text")
@@ -121,7 +125,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _compare(args: argparse.Namespace) -> int:
     from .errors import IncompatibleModelsError
-    from .loading import load_model_document, realization_from_document
+    from .loading import load_model_document
     from .report import compare_report, render_compare_text, render_json, signal_labels
     from .safe_output import terminal_text
     from .verdict import Options, overall_verdict
@@ -143,7 +147,13 @@ def _compare(args: argparse.Namespace) -> int:
         check_new_output(args.output, flag="")  # the output rule, checked before any work
     start = time.perf_counter()
     docs = [load_model_document(path) for path in args.models]
-    models = [realization_from_document(doc).with_name(doc.name) for doc in docs]
+    from .sparse_models import SparseRealization, model_for_comparison
+
+    models = [model_for_comparison(doc).with_name(doc.name) for doc in docs]
+    if args.format == "html" and any(isinstance(m, SparseRealization) for m in models):
+        sys.stderr.write("lti-audit: error: --format html does not draw sparse models above "
+                         "the dense route's size; use --format text or json\n")
+        return EXIT_INVALID
     signals = [signal_labels(doc) for doc in docs]
     names = [m.name or os.path.basename(p) for m, p in zip(models, args.models)]
     models = [m.with_name(n) for m, n in zip(models, names)]
@@ -199,7 +209,12 @@ def _drawn_models(models: list[Any], args: argparse.Namespace) -> list[Any]:
 
 def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore[no-untyped-def]
     from .realization import check_comparable, same_time_domain
+    from .sparse_models import SparseRealization, compare_sparse_pair
     from .verdict import compare_discretized, compare_pair, compare_sample_periods
+
+    if isinstance(ref, SparseRealization) or isinstance(other, SparseRealization):
+        return compare_sparse_pair(ref, other, rtol=options.rtol,
+                                   accept_sampled=bool(getattr(args, "accept_sampled", False)))
 
     if ref.is_discrete != other.is_discrete:
         if not args.discretization:

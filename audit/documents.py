@@ -75,6 +75,7 @@ from pydantic import (
 )
 
 from .errors import InvalidModelError
+from .sparse_models import SparseStateSpace
 
 __all__ = [
     "CLAIMED_FORMS",
@@ -135,7 +136,8 @@ SMALLEST_NORMAL = float(np.finfo(float).tiny)
 #: At most this many problems are listed in one error message; the rest are counted.
 MAX_LISTED_PROBLEMS = 20
 
-REPRESENTATIONS: tuple[str, ...] = ("state_space", "transfer_function", "zeros_poles_gain")
+REPRESENTATIONS: tuple[str, ...] = ("state_space", "transfer_function", "zeros_poles_gain",
+                                   "sparse_state_space")
 
 ClaimedForm = Literal[
     "controllable_companion",
@@ -802,6 +804,9 @@ class ModelDocument(BaseModel):
         default=None, description="Transfer-function matrix.")
     zeros_poles_gain: ZerosPolesGain | None = Field(
         default=None, description="Zeros, poles and gain per channel.")
+    sparse_state_space: SparseStateSpace | None = Field(
+        default=None, description="State-space matrices in coordinate-triplet form "
+        "(large sparse models; see audit.sparse_models).")
     inputs: list[Signal] | None = Field(default=None, description="One entry per input.")
     outputs: list[Signal] | None = Field(default=None, description="One entry per output.")
     states: list[Signal] | None = Field(
@@ -863,7 +868,8 @@ class ModelDocument(BaseModel):
                 hint = f" (unknown key {close[0]!r} looks like a misspelling)"
             problems.append(DocumentProblem(
                 (), "no model given: expected exactly one of 'state_space', "
-                    f"'transfer_function' or 'zeros_poles_gain'{hint}", 0))
+                    f"'transfer_function' or 'zeros_poles_gain' (or 'sparse_state_space')"
+                    f"{hint}", 0))
         elif len(given) > 1:
             problems.append(DocumentProblem(
                 (), f"{len(given)} representations given ({', '.join(given)}); a document "
@@ -888,6 +894,8 @@ class ModelDocument(BaseModel):
         ]
         if self.state_space is not None:
             counts.append(("states", self.states, self.state_space.order, "state"))
+        elif self.sparse_state_space is not None:
+            counts.append(("states", self.states, self.sparse_state_space.order, "state"))
         elif self.states is not None:
             problems.append(DocumentProblem(
                 ("states",), f"state names are only meaningful for a state_space model, but "
@@ -914,10 +922,13 @@ class ModelDocument(BaseModel):
 
     # ---------------------------------------------------------------- properties
     @property
-    def representation(self) -> Literal["state_space", "transfer_function", "zeros_poles_gain"]:
-        """Which of the three representations the document uses."""
+    def representation(self) -> Literal["state_space", "transfer_function", "zeros_poles_gain",
+                                        "sparse_state_space"]:
+        """Which of the four representations the document uses."""
         if self.state_space is not None:
             return "state_space"
+        if self.sparse_state_space is not None:
+            return "sparse_state_space"
         if self.transfer_function is not None:
             return "transfer_function"
         return "zeros_poles_gain"
@@ -925,6 +936,8 @@ class ModelDocument(BaseModel):
     def _io_shape(self) -> tuple[int, int]:
         if self.state_space is not None:
             return _shape(self.state_space.d)
+        if self.sparse_state_space is not None:
+            return self.sparse_state_space.io_shape
         if self.transfer_function is not None:
             return _shape(self.transfer_function.denominator)
         assert self.zeros_poles_gain is not None
@@ -954,6 +967,8 @@ class ModelDocument(BaseModel):
         """
         if self.state_space is not None:
             return self.state_space.order
+        if self.sparse_state_space is not None:
+            return self.sparse_state_space.order
         if self.transfer_function is not None:
             return sum(len(den) - 1 for row in self.transfer_function.denominator for den in row)
         assert self.zeros_poles_gain is not None

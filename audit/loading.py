@@ -384,6 +384,11 @@ def _read_npz(path: Path, source: str) -> dict[str, Any]:
                                 "a, b, c, d", source=source)
     with archive:
         names = set(archive.files)
+        from .sparse_models import is_sparse_npz, sparse_npz_document
+
+        if is_sparse_npz(names):  # triplet arrays a_rows, a_cols, ... (audit.sparse_models)
+            _npz_array_bytes(archive, names, source)
+            return sparse_npz_document(archive, names, path.stem, source)
         missing = [k for k in _NPZ_ARRAYS if k not in names]
         if missing:
             upper = [k for k in missing if k.upper() in names]
@@ -559,6 +564,17 @@ def realization_from_document(doc: ModelDocument) -> Realization:
             a, b, c = np.array(ss.a), np.array(ss.b), np.array(ss.c)
         return Realization.from_arrays(a, b, c, np.array(ss.d), doc.sample_period,
                                        name=doc.name)
+    if doc.sparse_state_space is not None:
+        from .documents import MAX_ORDER
+        from .sparse_models import sparse_realization_from_document
+
+        if doc.sparse_state_space.order > MAX_ORDER:
+            raise InvalidModelError(
+                f"sparse_state_space: {doc.sparse_state_space.order} states, above the dense "
+                f"limit MAX_ORDER = {MAX_ORDER}; only 'lti-audit compare' handles sparse "
+                "models this large (sampled sparse route)", field="sparse_state_space",
+                source=doc.name)
+        return sparse_realization_from_document(doc).to_dense()
     from . import conversions  # lazy: the numeric conversions are another module's job
 
     what = doc.representation.replace("_", " ")
