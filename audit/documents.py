@@ -868,8 +868,7 @@ class ModelDocument(BaseModel):
                 hint = f" (unknown key {close[0]!r} looks like a misspelling)"
             problems.append(DocumentProblem(
                 (), "no model given: expected exactly one of 'state_space', "
-                    f"'transfer_function' or 'zeros_poles_gain' (or 'sparse_state_space')"
-                    f"{hint}", 0))
+                    f"'transfer_function' or 'zeros_poles_gain'{hint}", 0))
         elif len(given) > 1:
             problems.append(DocumentProblem(
                 (), f"{len(given)} representations given ({', '.join(given)}); a document "
