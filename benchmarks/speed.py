@@ -3,6 +3,7 @@
 Usage::
 
     python benchmarks/speed.py [--quick] [--repeat R] [--case-budget S] [--ladder-only]
+                               [--sparse-ladder]
 
 (a) a 100-state SISO claimed-equivalent pair audited end to end
     (:func:`audit.verdict.compare_pair`), median wall-clock time;
@@ -26,7 +27,14 @@ Usage::
     adaptive grid against python-control's, timed in the same run (CPU seconds, one
     BLAS thread each), both checked against a python-flint ball evaluation of the stored
     matrices whose precision is raised until the radius is below 1e-20 of the value
-    (pointwise error relative to the local value).
+    (pointwise error relative to the local value);
+(g) a sparse ladder (2,000 to 20,000 states; the reheating-bar finite-difference model of
+    ``benchmarks/_sparse_cases.py``): each pair audited from .npz files in its own
+    subprocess by the sampled sparse route (:func:`audit.sparse_models.compare_sparse_pair`,
+    sampled evidence accepted), against a rational Krylov reduced model, against a
+    refactored sparse copy (states scaled by powers of two and permuted: exact), and
+    against a copy with the loss coefficient moved by 1e-3; wall-clock, CPU, peak
+    resident memory, grid points, verdict. ``--sparse-ladder`` runs only this table.
 
 Timings are wall-clock on whatever machine runs this; they are noisy when other
 processes compete for the cores.
@@ -318,12 +326,91 @@ def _case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
             "load": os.getloadavg()[0]}
 
 
+def _sparse_case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
+    import resource
+    import tempfile
+
+    import scipy.sparse as sp
+    from _sparse_cases import LOSS, krylov_reduced, reheating_bar
+
+    from audit._threads import set_audit_threads
+    from audit.loading import load_model_document
+    from audit.sparse_models import (compare_sparse_pair, model_for_comparison,
+                                     save_sparse_model_npz)
+
+    set_audit_threads()
+    n, kind = spec["n"], spec["kind"]
+    bar = reheating_bar(n)
+    extra: dict[str, Any] = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        first = Path(tmp) / "bar.npz"
+        save_sparse_model_npz(first, bar.a, bar.b, bar.c, bar.d)
+        if kind == "reduced":
+            t = time.perf_counter()
+            other: Any = krylov_reduced(bar)
+            extra = {"reduction_seconds": time.perf_counter() - t, "reduced_order": other.order}
+        else:
+            if kind == "refactored":
+                rng = np.random.default_rng(5)
+                perm = sp.identity(n, format="csr")[rng.permutation(n)]
+                scale = sp.diags(2.0 ** rng.integers(-6, 7, n))
+                inv = sp.diags(1.0 / scale.diagonal())
+                a, b, c = perm @ scale @ bar.a @ inv @ perm.T, perm @ (scale @ bar.b), \
+                    bar.c @ inv @ perm.T
+            else:
+                moved = reheating_bar(n, loss=LOSS * (1 + 1e-3))
+                a, b, c = moved.a, moved.b, moved.c
+            second = Path(tmp) / "other.npz"
+            save_sparse_model_npz(second, a, b, c, bar.d)
+        wall, cpu = time.perf_counter(), time.process_time()
+        r1 = model_for_comparison(load_model_document(first)).with_name("bar")
+        if kind != "reduced":
+            other = model_for_comparison(load_model_document(second)).with_name(kind)
+        pc = compare_sparse_pair(r1, other, accept_sampled=True)
+        wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
+    decisive = pc.evidence[0]
+    return {"verdict": pc.verdict, "seconds": wall, "cpu_seconds": cpu,
+            "points": decisive.details["grid"]["points"], "nnz": int(bar.a.nnz),
+            "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0,
+            "load": os.getloadavg()[0], **extra}
+
+
+SPARSE_LADDER = [2000, 5000, 10000, 20000]
+
+
+def sparse_ladder(orders: list[int], budget: float) -> list[dict[str, Any]]:
+    rows = []
+    for n in orders:
+        for kind in ("reduced", "refactored", "moved"):
+            row: dict[str, Any] = {"n": n, "kind": kind}
+            row.update(run_case({"source": "sparse", "n": n, "kind": kind}, budget))
+            rows.append(row)
+    return rows
+
+
+def render_sparse_ladder(rows: list[dict[str, Any]]) -> str:
+    lines = ["(g) sparse ladder: reheating bar (tridiagonal A), audited from .npz files by the "
+             "sampled sparse-LU route, one subprocess per pair",
+             f"{'n':>6} {'nnz(A)':>7} {'against':<11} {'wall s':>7} {'CPU s':>7} "
+             f"{'peak MiB':>8} {'points':>6}  verdict"]
+    for r in rows:
+        lines.append(f"{r['n']:>6} {r.get('nnz', 0):>7} {r['kind']:<11} {r['seconds']:>7.2f} "
+                     f"{r.get('cpu_seconds', float('nan')):>7.2f} "
+                     f"{r.get('peak_rss_mib', float('nan')):>8.0f} {r.get('points', 0):>6}  "
+                     f"{r['verdict']}"
+                     + (f" (reduced order {r['reduced_order']}, reduction "
+                        f"{r['reduction_seconds']:.1f} s)" if "reduced_order" in r else ""))
+    return "\n".join(lines)
+
+
 def run_case(spec: dict[str, Any], budget: float) -> dict[str, Any]:
     """One audit in a fresh subprocess (so that peak memory is per case)."""
     import json
 
     code = (f"import json, sys; sys.path.insert(0, {str(Path(__file__).resolve().parent)!r}); "
-            f"import speed; print(json.dumps(speed._case_in_process({spec!r})))")
+            f"import speed; print(json.dumps(speed."
+            f"{'_sparse_case_in_process' if spec['source'] == 'sparse' else '_case_in_process'}"
+            f"({spec!r})))")
     try:
         res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                              timeout=budget, check=False)
@@ -503,16 +590,20 @@ LADDER_IOS = [(1, 1), (3, 3), (10, 10)]
 
 
 def run(*, quick: bool, repeat: int, case_budget: float = 600.0,
-        ladder_only: bool = False) -> tuple[dict[str, Any], str]:
+        ladder_only: bool = False, sparse_only: bool = False) -> tuple[dict[str, Any], str]:
+    sparse = sparse_ladder([600] if quick else SPARSE_LADDER, case_budget)
+    sparse_text = render_sparse_ladder(sparse)
+    if sparse_only:
+        return {"sparse_ladder": sparse}, sparse_text
     if quick:
         ladder = size_ladder([8], [(1, 1)], case_budget)
         pub = published(["build48"], case_budget, check_points=3, repeat=1)
     else:
         ladder = size_ladder(LADDER_ORDERS, LADDER_IOS, case_budget)
         pub = published(PUBLISHED, case_budget, check_points=25, repeat=repeat)
-    ladder_text = render_ladder(ladder, pub)
+    ladder_text = render_ladder(ladder, pub) + "\n\n" + sparse_text
     if ladder_only:
-        return {"ladder": ladder, "published": pub}, ladder_text
+        return {"ladder": ladder, "published": pub, "sparse_ladder": sparse}, ladder_text
     if quick:
         a = end_to_end(8, 1)
         b = frequency_response_race(20, 100, 1, 5)
@@ -525,7 +616,7 @@ def run(*, quick: bool, repeat: int, case_budget: float = 600.0,
         c = scaling([10, 25, 50, 100, 200], [(1, 1), (4, 4)], audit_max_order=200)
         d = startup(5)
     result = {"end_to_end": a, "frequency_response": b, "scaling": c, "startup": d,
-              "ladder": ladder, "published": pub}
+              "ladder": ladder, "published": pub, "sparse_ladder": sparse}
     return result, render(a, b, c, d) + "\n\n" + ladder_text
 
 
@@ -536,11 +627,12 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--case-budget", type=float, default=600.0,
                         help="seconds allowed per ladder audit; a series stops climbing after a "
                         "case uses a third of it")
-    parser.add_argument("--ladder-only", action="store_true", help="only tables (e) and (f)")
+    parser.add_argument("--ladder-only", action="store_true", help="only tables (e), (f), (g)")
+    parser.add_argument("--sparse-ladder", action="store_true", help="only table (g)")
     args = parser.parse_args(argv)
     start = time.perf_counter()
     _, text = run(quick=args.quick, repeat=args.repeat, case_budget=args.case_budget,
-                  ladder_only=args.ladder_only)
+                  ladder_only=args.ladder_only, sparse_only=args.sparse_ladder)
     print(text)
     print(f"\ntotal wall-clock {time.perf_counter() - start:.1f} s")
     return 0
