@@ -55,8 +55,10 @@ def krylov_reduced(r: SparseRealization, shifts: int = 40, *, name: str = "reduc
     """Galerkin rational Krylov reduction at ``shifts`` real shifts over the spectrum."""
     a = r.a.tocsc()
     n = a.shape[0]
-    high = float(np.max(np.asarray(abs(a).sum(axis=1)).ravel()))
-    low = LOSS / 10.0
+    from audit.sparse_models import spectrum_extent
+
+    low, high, _ = spectrum_extent(r)
+    low /= 10.0
     eye = sp.identity(n, format="csc")
     cols = []
     for s in np.geomspace(low, high, shifts):
@@ -82,3 +84,28 @@ def as_document(r: SparseRealization) -> dict[str, Any]:
     return {"lti_model": 1, "name": r.name, "sample_period": r.sample_period,
             "sparse_state_space": {"a": triplets(r.a), "b": triplets(r.b),
                                    "c": triplets(r.c), "d": triplets(r.d)}}
+
+
+SLAB_SIDE = 8.0  # m
+SLAB_DIFFUSIVITY = 6.0e-7  # m^2/s, concrete
+SLAB_LOSS = 1.0e-5  # 1/s, to the room air
+
+
+def floor_slab(side: int, *, loss: float = SLAB_LOSS, name: str = "floor slab") -> SparseRealization:
+    """A heated floor slab of a climate-chamber zone: 2-D heat equation on a side x side
+    grid (five-point finite differences, insulated edges), heating mat under one corner
+    quarter-patch (input, W/m^2), sensor at the centre (output). Symmetric A with
+    side^2 states and about 5 side^2 entries."""
+    h = SLAB_SIDE / side
+    k = SLAB_DIFFUSIVITY / h**2
+    main = np.full(side, -2.0 * k)
+    main[0] = main[-1] = -k
+    lap1 = sp.diags([np.full(side - 1, k), main, np.full(side - 1, k)], [-1, 0, 1])
+    eye = sp.identity(side)
+    a = (sp.kron(lap1, eye) + sp.kron(eye, lap1) - loss * sp.identity(side * side)).tocsr()
+    patch = np.zeros((side, side))
+    patch[: side // 4, : side // 4] = 1.0 / (2.2e6 * 0.1)  # rho c of concrete x 0.1 m depth
+    b = patch.reshape(-1, 1)
+    c = np.zeros((1, side * side))
+    c[0, (side // 2) * side + side // 2] = 1.0
+    return SparseRealization(a, b, c, np.zeros((1, 1)), None, name)
