@@ -482,8 +482,9 @@ def _response(r: Any, omegas: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 # ------------------------------------------------------------------ spectrum extent
-def spectrum_extent(r: Any) -> tuple[float, float, str]:
-    """``(low, high, how)``: estimates of the smallest and largest eigenvalue moduli of A.
+def spectrum_extent(r: Any, center: float = 0.0) -> tuple[float, float, str]:
+    """``(low, high, how)``: estimates of the smallest and largest ``|lambda - center|``
+    over the eigenvalues of A (``center`` 0 for continuous time, 1 for discrete time).
 
     ``high`` is a Gershgorin bound (an upper bound on every ``|lambda|``); ``low`` is the
     smallest modulus found by shift-invert Arnoldi at 0 (``scipy.sparse.linalg.eigs``),
@@ -493,6 +494,8 @@ def spectrum_extent(r: Any) -> tuple[float, float, str]:
 
     a = r.a if isinstance(r, SparseRealization) else sp.csr_matrix(r.a)
     n = a.shape[0]
+    if center:
+        a = (a - center * sp.identity(n, format="csr")).tocsr()
     if n == 0:
         return 1.0, 1.0, "order 0"
     high = float(np.max(np.asarray(abs(a).sum(axis=1)).ravel()))
@@ -560,7 +563,7 @@ def _evaluate(r1: Any, r2: Any, omegas: np.ndarray) -> tuple[np.ndarray, ...]:
 def _sampled_grid(r1: Any, r2: Any, opts: SparseOptions) -> tuple[_Grid, dict[str, Any]]:
     lows, highs, hows = [], [], []
     for r in (r1, r2):
-        lo, hi, how = spectrum_extent(r)
+        lo, hi, how = spectrum_extent(r, 1.0 if r.is_discrete else 0.0)
         lows.append(lo)
         highs.append(hi)
         hows.append(how)
@@ -568,7 +571,8 @@ def _sampled_grid(r1: Any, r2: Any, opts: SparseOptions) -> tuple[_Grid, dict[st
     if r1.is_discrete:
         nyquist = math.pi / float(r1.sample_period)
         # poles near z = 1 set the low end: |log z| ~ |lambda - 1| / T
-        band = (nyquist * 1e-6, nyquist)
+        # poles near z = 1 set the low end: a pole at 1 - d acts like one at d / T rad/s
+        band = (min(nyquist * 1e-6, low / float(r1.sample_period) / 100.0), nyquist)
     else:
         band = (low / 100.0, high * 100.0)
     decades = math.log10(band[1] / band[0])
