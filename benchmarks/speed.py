@@ -331,7 +331,7 @@ def _sparse_case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
     import tempfile
 
     import scipy.sparse as sp
-    from _sparse_cases import LOSS, krylov_reduced, reheating_bar
+    from _sparse_cases import LOSS, SLAB_LOSS, floor_slab, krylov_reduced, reheating_bar
 
     from audit._threads import set_audit_threads
     from audit.loading import load_model_document
@@ -340,7 +340,16 @@ def _sparse_case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
 
     set_audit_threads()
     n, kind = spec["n"], spec["kind"]
-    bar = reheating_bar(n)
+    slab = spec.get("model") == "slab"
+    side = int(round(n ** 0.5))
+
+    def build(moved: bool = False) -> Any:
+        if slab:
+            return floor_slab(side, loss=SLAB_LOSS * (1 + 1e-3) if moved else SLAB_LOSS)
+        return reheating_bar(n, loss=LOSS * (1 + 1e-3) if moved else LOSS)
+
+    bar = build()
+    n = bar.order
     extra: dict[str, Any] = {}
     with tempfile.TemporaryDirectory() as tmp:
         first = Path(tmp) / "bar.npz"
@@ -358,7 +367,7 @@ def _sparse_case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
                 a, b, c = perm @ scale @ bar.a @ inv @ perm.T, perm @ (scale @ bar.b), \
                     bar.c @ inv @ perm.T
             else:
-                moved = reheating_bar(n, loss=LOSS * (1 + 1e-3))
+                moved = build(moved=True)
                 a, b, c = moved.a, moved.b, moved.c
             second = Path(tmp) / "other.npz"
             save_sparse_model_npz(second, a, b, c, bar.d)
@@ -369,7 +378,7 @@ def _sparse_case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
         pc = compare_sparse_pair(r1, other, accept_sampled=True)
         wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
     decisive = pc.evidence[0]
-    return {"verdict": pc.verdict, "seconds": wall, "cpu_seconds": cpu,
+    return {"verdict": pc.verdict, "seconds": wall, "cpu_seconds": cpu, "n": n,
             "points": decisive.details["grid"]["points"], "nnz": int(bar.a.nnz),
             "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0,
             "load": os.getloadavg()[0], **extra}
@@ -380,21 +389,23 @@ SPARSE_LADDER = [2000, 5000, 10000, 20000]
 
 def sparse_ladder(orders: list[int], budget: float) -> list[dict[str, Any]]:
     rows = []
-    for n in orders:
-        for kind in ("reduced", "refactored", "moved"):
-            row: dict[str, Any] = {"n": n, "kind": kind}
-            row.update(run_case({"source": "sparse", "n": n, "kind": kind}, budget))
-            rows.append(row)
+    for model in ("bar", "slab"):
+        for n in orders:
+            for kind in ("reduced", "refactored", "moved"):
+                row: dict[str, Any] = {"n": n, "kind": kind, "model": model}
+                row.update(run_case({"source": "sparse", "n": n, "kind": kind, "model": model},
+                                    budget))
+                rows.append(row)
     return rows
 
 
 def render_sparse_ladder(rows: list[dict[str, Any]]) -> str:
-    lines = ["(g) sparse ladder: reheating bar (tridiagonal A), audited from .npz files by the "
-             "sampled sparse-LU route, one subprocess per pair",
-             f"{'n':>6} {'nnz(A)':>7} {'against':<11} {'wall s':>7} {'CPU s':>7} "
+    lines = ["(g) sparse ladder: reheating bar (tridiagonal A) and floor slab (2-D five-point "
+             "A), audited from .npz files by the sampled sparse-LU route, one subprocess per pair",
+             f"{'model':<5} {'n':>6} {'nnz(A)':>7} {'against':<11} {'wall s':>7} {'CPU s':>7} "
              f"{'peak MiB':>8} {'points':>6}  verdict"]
     for r in rows:
-        lines.append(f"{r['n']:>6} {r.get('nnz', 0):>7} {r['kind']:<11} {r['seconds']:>7.2f} "
+        lines.append(f"{r['model']:<5} {r['n']:>6} {r.get('nnz', 0):>7} {r['kind']:<11} {r['seconds']:>7.2f} "
                      f"{r.get('cpu_seconds', float('nan')):>7.2f} "
                      f"{r.get('peak_rss_mib', float('nan')):>8.0f} {r.get('points', 0):>6}  "
                      f"{r['verdict']}"
