@@ -123,6 +123,14 @@ def test_speed_quick_prints_tables(capsys: pytest.CaptureFixture[str]) -> None:
     assert "| 1x1 | 8 | equivalent |" in out and out.count("| equivalent |") >= 1
     assert "| 1x1 | 8 | different |" in out
     assert "| build48 | 48 | 1x1 | " in out and "/ equivalent |" in out and "/ different |" in out
+    # the quick sparse ladder (g): exact refactor and reduced model on the grid, moved loss
+    assert "(g) sparse ladder" in out
+    sparse_rows = [line.split() for line in out.splitlines()
+                   if line.startswith(("bar ", "slab "))]
+    verdicts = {(row[0], row[3]): row[8] for row in sparse_rows}  # model, kind -> verdict
+    assert verdicts[("bar", "refactored")] == "equivalent"  # exact by construction
+    assert verdicts[("bar", "moved")] == "different"  # loss moved by 1e-3
+    assert verdicts[("slab", "moved")] == "different"
 
 
 def test_speed_frequency_race_accuracy() -> None:

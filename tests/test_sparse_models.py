@@ -303,6 +303,11 @@ def test_cli_compare_takes_the_sparse_route(capsys, tmp_path, bar):
     assert code == 0 and "EQUIVALENT ON THE SAMPLED GRID" in out
     code = main(["compare", str(tmp_path / "bar.json"), str(tmp_path / "moved.json")])
     assert code == 1
+    capsys.readouterr()
+    code = main(["compare", str(tmp_path / "bar.json"), str(tmp_path / "moved.json"),
+                 "--format", "html", "-o", str(tmp_path / "r.html")])
+    assert code == 2 and "does not draw sparse models" in capsys.readouterr().err
+    assert not (tmp_path / "r.html").exists()
 
 
 def test_dense_only_commands_refuse_sparse_models_above_the_dense_limit():
