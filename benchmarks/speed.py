@@ -32,7 +32,7 @@ Usage::
     ``benchmarks/_sparse_cases.py``): each pair audited from .npz files in its own
     subprocess by the sampled sparse route (:func:`audit.sparse_models.compare_sparse_pair`,
     sampled evidence accepted), against a rational Krylov reduced model, against a
-    refactored sparse copy (states scaled by powers of two and permuted: exact), and
+    refactored sparse copy (states scaled by powers of two and permuted: exact; bar only), and
     against a copy with the loss coefficient moved by 1e-3; wall-clock, CPU, peak
     resident memory, grid points, verdict. ``--sparse-ladder`` runs only this table.
 
@@ -391,11 +391,15 @@ def sparse_ladder(orders: list[int], budget: float) -> list[dict[str, Any]]:
     rows = []
     for model in ("bar", "slab"):
         for n in orders:
-            for kind in ("reduced", "refactored", "moved"):
+            # the rescaled, permuted slab is left out: partial pivoting on its rescaled
+            # rows fills the LU (a 5,000-node case ran for minutes; see README)
+            kinds = ("reduced", "refactored", "moved") if model == "bar" else ("reduced", "moved")
+            for kind in kinds:
                 row: dict[str, Any] = {"n": n, "kind": kind, "model": model}
                 row.update(run_case({"source": "sparse", "n": n, "kind": kind, "model": model},
                                     budget))
                 rows.append(row)
+                print(render_sparse_ladder([row]).splitlines()[-1], file=sys.stderr, flush=True)
     return rows
 
 
