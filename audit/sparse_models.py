@@ -451,31 +451,36 @@ def sparse_response(r: SparseRealization, omegas: Any) -> tuple[np.ndarray, np.n
                       else splu(mat, permc_spec="COLAMD"))
             except RuntimeError:  # exactly singular (a pole on the contour) or no pivot
                 continue
-            g, err = _refined_point(lu, mat, z, r, b, c, abs_a, abs_b, abs_c, gamma)
+            g, err, backward = _refined_point(lu, mat, z, r, b, c, abs_a, abs_b, abs_c, gamma)
             if np.isfinite(err) and err < errors[i]:
                 values[i], errors[i] = g, err  # keep the better-estimated of the two
-            if np.isfinite(err) and err <= 1e-8 * max(float(np.linalg.norm(g)), 1e-300):
-                break  # accurate enough: no need for the partial-pivoting factorization
+            if np.isfinite(err) and backward <= 1e-10:
+                break  # backward stable: no need for the partial-pivoting factorization
     return values, errors
 
 
 def _refined_point(lu: Any, mat: Any, z: complex, r: SparseRealization, b: np.ndarray,
                    c: np.ndarray, abs_a: Any, abs_b: np.ndarray, abs_c: np.ndarray,
-                   gamma: float) -> tuple[np.ndarray, float]:
-    """G at one point from an LU of ``mat = z I - A``: one refinement step and the
-    residual-based error estimate (module docstring); ``inf`` error if not finite."""
+                   gamma: float) -> tuple[np.ndarray, float, float]:
+    """G at one point from an LU of ``mat = z I - A``: one refinement step, the
+    residual-based error estimate (module docstring; ``inf`` if not finite) and the
+    componentwise backward error of the refined solution."""
     n = r.order
     x = lu.solve(b)
     x = x + lu.solve(b - mat @ x)  # one step of iterative refinement
     res = b - mat @ x
     if not np.all(np.isfinite(x)):
-        return np.full((r.n_outputs, r.n_inputs), np.nan + 0j), math.inf
+        return np.full((r.n_outputs, r.n_inputs), np.nan + 0j), math.inf, math.inf
     # rounding of the residual itself: gamma (|B| + |M| |X|), |M| <= |z| I + |A|
-    delta = gamma * (abs_b + abs(z) * np.abs(x) + abs_a @ np.abs(x))
+    magnitude = abs_b + abs(z) * np.abs(x) + abs_a @ np.abs(x)
+    delta = gamma * magnitude
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(magnitude > 0, np.abs(res) / magnitude, np.where(res == 0, 0.0, np.inf))
+    backward = float(np.max(ratio, initial=0.0))
     w = lu.solve(c.conj().T.copy(), trans="H").conj().T  # W = C M^-1, (p, n)
     g = c @ x + r.d
     est = np.abs(w @ res) + np.abs(w) @ delta + (n + 2) * _EPS * (abs_c @ np.abs(x))
-    return g, float(np.linalg.norm(est)) + 4 * _EPS * float(np.linalg.norm(g))
+    return g, float(np.linalg.norm(est)) + 4 * _EPS * float(np.linalg.norm(g)), backward
 
 
 def _dense_response(r: "Realization", omegas: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
