@@ -523,7 +523,7 @@ def _leading(r: Realization, k: int) -> Realization:
 _SCALING_SWEEPS = 100
 
 
-def state_scaling(r: Realization) -> FloatArray:
+def state_scaling(r: Realization, *, floor: float = 0.0) -> FloatArray:
     """Diagonal state scaling (powers of 2) that balances the system matrix.
 
     Our own variant of the Parlett-Reinsch balancing iteration (B. N. Parlett and
@@ -537,10 +537,21 @@ def state_scaling(r: Realization) -> FloatArray:
     Returns ``d`` such that the scaled realization is ``(D^-1 A D, D^-1 B, C D, D)``
     with ``D = diag(d)``. Powers of 2 make the scaling exact in floating point.
 
+    Entries at or below ``floor`` times the Frobenius norm of their own matrix
+    (``|a_ij| <= floor ||A||``, ``|b_ij| <= floor ||B||``, ``|c_ij| <= floor ||C||``)
+    do not steer the scaling: they are treated as zero while the scaling is computed.
+    The staircase passes its rank tolerance here, so the scaling cannot amplify an
+    entry that the staircase would judge to be zero -- a rounding-level ``3e-17`` in C,
+    the only link of an unobservable state to the output, would otherwise be blown up
+    by about ``7e7`` until it looks like a real coupling (issue 11). Genuine badly
+    scaled coordinates (entries above the floor) are balanced as before.
+
     Parameters
     ----------
     r : Realization
         ``A : (n, n)``, ``B : (n, m)``, ``C : (p, n)``.
+    floor : float, keyword-only
+        Relative size at or below which an entry is ignored (default 0: none ignored).
 
     Returns
     -------
@@ -554,12 +565,18 @@ def state_scaling(r: Realization) -> FloatArray:
     r = _check_realization(r)
     n = r.order
     a = np.array(r.a, dtype=float, copy=True)
-    nb = float(np.linalg.norm(r.b))
-    nc = float(np.linalg.norm(r.c))
+    b_raw = np.array(r.b, dtype=float, copy=True)
+    c_raw = np.array(r.c, dtype=float, copy=True)
+    nb = float(np.linalg.norm(b_raw))
+    nc = float(np.linalg.norm(c_raw))
     na = float(np.linalg.norm(a))
+    if floor > 0.0:
+        a[np.abs(a) <= floor * na] = 0.0
+        b_raw[np.abs(b_raw) <= floor * nb] = 0.0
+        c_raw[np.abs(c_raw) <= floor * nc] = 0.0
     ref = na if na > 0.0 else max(nb, nc, 1.0)
-    b = np.array(r.b, dtype=float) * (ref / nb) if nb > 0.0 else np.array(r.b, dtype=float)
-    c = np.array(r.c, dtype=float) * (ref / nc) if nc > 0.0 else np.array(r.c, dtype=float)
+    b = b_raw * (ref / nb) if nb > 0.0 else b_raw
+    c = c_raw * (ref / nc) if nc > 0.0 else c_raw
     d = np.ones(n)
     for _ in range(_SCALING_SWEEPS):
         changed = False
@@ -591,11 +608,42 @@ def _scaled(r: Realization, d: FloatArray) -> Realization:
     return r.with_matrices(a, np.asarray(r.b) / d[:, None], np.asarray(r.c) * d[None, :])
 
 
-def _prepare(r: Realization, balance: bool) -> tuple[Realization, FloatArray, bool]:
-    """(realization to work on, scaling d, whether d differs from all ones)."""
-    d = state_scaling(r) if balance else np.ones(r.order)
+def _prepare(r: Realization, balance: bool, rtol: float) -> tuple[Realization, FloatArray, bool]:
+    """(realization to work on, scaling d, whether d differs from all ones).
+
+    Two candidate scalings: the plain balancing ``d_all`` of :func:`state_scaling` and
+    the one that ignores entries below the rank tolerance ``d_floor``. They differ only
+    when some entry lies at rounding level. When the staircases in the two coordinate
+    systems remove different numbers of modes, the mode couplings decide
+    (:func:`_scaling_by_joint_coupling`): a tiny entry that is the only link of a mode
+    (issue 11: ``C = [..., 3e-17]``) leaves the mode's joint coupling -- the product of
+    its input and output couplings, which a diagonal state scaling leaves unchanged up
+    to the normalisation -- at rounding level, while a state rescaled by a unit change of
+    1e9 keeps a joint coupling of order one.
+    """
+    if not balance or r.order == 0:
+        return r, np.ones(r.order), False
+    d_all = state_scaling(r)
+    d_floor = state_scaling(r, floor=rtol)
+    d = d_all
+    if np.any(d_all != d_floor):  # exact: powers of 2 set by us
+        d = _scaling_by_joint_coupling(r, d_all, d_floor, rtol)
     nontrivial = bool(np.any(d != 1.0))  # exact: d holds powers of 2 set by us
     return (_scaled(r, d) if nontrivial else r), d, nontrivial
+
+
+def _scaling_by_joint_coupling(r: Realization, d_all: FloatArray, d_floor: FloatArray,
+                               rtol: float) -> FloatArray:
+    """The scaling whose staircase removes as many modes as have a joint coupling at or
+    below ``rtol`` (measured in the plainly balanced coordinates); ``d_all`` on a tie."""
+    order_all = _minimal_parts(_scaled(r, d_all), rtol)[0].order
+    order_floor = _minimal_parts(_scaled(r, d_floor), rtol)[0].order
+    if order_all == order_floor:
+        return d_all
+    sides = _mode_sides(_scaled(r, d_all))
+    weak = int(np.count_nonzero(sides.inputs * sides.outputs <= rtol))
+    removed_all, removed_floor = r.order - order_all, r.order - order_floor
+    return d_floor if abs(removed_floor - weak) < abs(removed_all - weak) else d_all
 
 
 # ------------------------------------------------------------ minimal realization
@@ -749,7 +797,7 @@ def _minimal_realization(
     """Implementation of :func:`minimal_realization`."""
     r = _check_realization(r)
     rtol = _relative_tolerance(tol, r.order)
-    work, d, scaled = _prepare(r, balance)
+    work, d, scaled = _prepare(r, balance, rtol)
     minimal, unc, uno, decisions, discarded = _minimal_parts(work, rtol)
     unscaled_order = _minimal_parts(r, rtol)[0].order if scaled else minimal.order
     if minimal.order == r.order:
@@ -988,7 +1036,7 @@ def kalman_decomposition(
     """
     r = _check_realization(r)
     rtol = _relative_tolerance(tol, r.order)
-    work, d, scaled = _prepare(r, balance)
+    work, d, scaled = _prepare(r, balance, rtol)
     parts = _kalman_parts(work, rtol)
     unscaled_sizes = _kalman_parts(r, rtol)["block_sizes"] if scaled else parts["block_sizes"]
     return KalmanDecomposition(
@@ -1181,6 +1229,338 @@ def hidden_modes(
     )
 
 
+# ------------------------------------------------------------------- mode coupling
+#: joint coupling (input coupling times output coupling) at or below which a mode the
+#: staircase kept is reported as *nearly hidden*. A mode coupled at 1e-6 of ||C|| on one
+#: side and of order one on the other has a joint coupling of a few 1e-7 (common
+#: practice for "weak" is 1e-3 per side; our choice, no source).
+NEARLY_HIDDEN_LEVEL = 1e-5
+#: eigenvalue condition number above which eigenvector couplings are not trusted and
+#: the PBH singular values are used instead (1/sqrt(eps) would be the classic limit;
+#: we switch earlier).
+EIGENVECTOR_CONDITION_LIMIT = 1e8
+#: eigenvalues closer than this (relative to ||A||_2) form one cluster, measured by PBH.
+CLUSTER_RTOL = 1e-6
+
+CouplingMethod = Literal["eigenvector", "pbh"]
+Classification = Literal["hidden", "nearly_hidden", "coupled"]
+
+
+@dataclass(frozen=True)
+class _Sides:
+    values: ComplexArray
+    inputs: FloatArray
+    outputs: FloatArray
+    methods: tuple[CouplingMethod, ...]
+    conditions: FloatArray
+    clusters: tuple[tuple[int, ...], ...]
+
+
+def _pbh_levels(a: FloatArray, g: FloatArray, lam: complex, k: int, *, rows: bool) -> FloatArray:
+    """The ``k`` smallest singular values of ``[A - lam I, G^]`` (``rows=False``) or of
+    ``[A - lam I; G^]`` (``rows=True``), relative to the norm of ``[A, G^]`` / ``[A; G^]``.
+
+    ``G^`` is ``G`` scaled to the spectral norm of A (so that the units of the inputs
+    or outputs do not matter). This is the PBH test (V. M. Popov, V. Belevitch,
+    M. L. J. Hautus) made quantitative: the smallest value is the distance, relative
+    to the model's size, to a pair in which ``lam`` is exactly uncontrollable
+    (unobservable) -- Eising's distance to uncontrollability (R. Eising, "Between
+    controllable and uncontrollable", Systems & Control Letters 4 (1984) 263-264)
+    restricted to ``lam``.
+    """
+    n = a.shape[0]
+    na = float(np.linalg.norm(a, 2))
+    ng = float(np.linalg.norm(g, 2)) if g.size else 0.0
+    if ng == 0.0:
+        return np.zeros(k)
+    g_hat = g * ((na if na > 0.0 else 1.0) / ng)
+    shifted = a - lam * np.eye(n)
+    if rows:
+        m = np.vstack([shifted, g_hat.astype(complex)])
+        size = float(np.linalg.norm(np.vstack([a, g_hat]), 2))
+    else:
+        m = np.hstack([shifted, g_hat.astype(complex)])
+        size = float(np.linalg.norm(np.hstack([a, g_hat]), 2))
+    sv = np.linalg.svd(m, compute_uv=False)  # min(n + p, n) = n values, descending
+    smallest = np.sort(sv[:n])[:k]
+    return smallest / max(size, 1e-300)
+
+
+def _mode_sides(r: Realization) -> _Sides:
+    """Input and output coupling of every eigenvalue of A, in the given coordinates.
+
+    A simple, well-conditioned eigenvalue with unit right / left eigenvectors ``v``,
+    ``w``: inputs ``= ||w^H B||_2 / ||B||_2``, outputs ``= ||C v||_2 / ||C||_2`` (both in
+    [0, 1]; their product times ``||B|| ||C|| / |w^H v|`` is the norm of the mode's
+    residue ``C v w^H B / (w^H v)``, which no change of state coordinates alters).
+    Clustered eigenvalues (within ``CLUSTER_RTOL ||A||``) and eigenvalues with a
+    condition number above ``EIGENVECTOR_CONDITION_LIMIT`` use the PBH levels instead
+    (:func:`_pbh_levels`), the ``k`` smallest singular values going to the ``k``
+    members of a cluster.
+    """
+    a, b, c = (np.asarray(x, dtype=float) for x in (r.a, r.b, r.c))
+    n = a.shape[0]
+    if n == 0:
+        z = np.zeros(0)
+        return _Sides(np.zeros(0, dtype=complex), z, z, (), z, ())
+    try:
+        vals, vl, vr = scipy.linalg.eig(a, left=True, right=True)
+    except (np.linalg.LinAlgError, ValueError) as exc:  # pragma: no cover - LAPACK failure
+        raise NumericalTroubleError(f"eigenvalue computation failed: {exc}") from exc
+    vals = np.asarray(vals, dtype=complex)
+    vr = vr / np.maximum(np.linalg.norm(vr, axis=0), 1e-300)
+    vl = vl / np.maximum(np.linalg.norm(vl, axis=0), 1e-300)
+    denom = np.abs(np.sum(np.conj(vl) * vr, axis=0))
+    conditions = np.where(denom > 0.0, 1.0 / np.maximum(denom, 1e-300), np.inf)
+    nb = float(np.linalg.norm(b, 2)) if b.size else 0.0
+    nc = float(np.linalg.norm(c, 2)) if c.size else 0.0
+    inputs = np.zeros(n)
+    outputs = np.zeros(n)
+    if nb > 0.0:
+        inputs = np.linalg.norm(np.conj(vl).T @ b, axis=1) / nb
+    if nc > 0.0:
+        outputs = np.linalg.norm(c @ vr, axis=0) / nc
+    methods: list[CouplingMethod] = ["eigenvector"] * n
+    na = max(float(np.linalg.norm(a, 2)), 1e-300)
+    assigned = np.zeros(n, dtype=bool)
+    clusters: list[tuple[int, ...]] = []
+    for i in range(n):
+        if assigned[i]:
+            continue
+        members = tuple(int(j) for j in np.flatnonzero(
+            (np.abs(vals - vals[i]) <= CLUSTER_RTOL * na) & ~assigned))
+        assigned[list(members)] = True
+        clusters.append(members)
+        if len(members) == 1 and conditions[i] <= EIGENVECTOR_CONDITION_LIMIT:
+            continue
+        centre = complex(np.mean(vals[list(members)]))
+        k = len(members)
+        ins = _pbh_levels(a, b, centre, k, rows=False)
+        outs = _pbh_levels(a, c, centre, k, rows=True)
+        for t, j in enumerate(members):
+            inputs[j], outputs[j], methods[j] = float(ins[t]), float(outs[t]), "pbh"
+    return _Sides(vals, np.minimum(inputs, 1.0), np.minimum(outputs, 1.0), tuple(methods),
+                  conditions, tuple(clusters))
+
+
+@dataclass(frozen=True)
+class ModeCoupling:
+    """How strongly one mode (an eigenvalue of A) is coupled to the inputs and outputs.
+
+    Attributes
+    ----------
+    value : complex
+        The eigenvalue (s-plane, or z-plane for discrete time).
+    classification : {"hidden", "nearly_hidden", "coupled"}
+        "hidden": removed by the staircase (it does not count in the minimal order);
+        "nearly_hidden": kept, but ``joint <= NEARLY_HIDDEN_LEVEL``; "coupled" otherwise.
+    kind : {"uncontrollable", "unobservable", "uncontrollable_and_unobservable"} or None
+        The side(s) through which it is hidden or weakly coupled (None when coupled).
+    stability : {"stable", "marginal", "unstable"}
+    inputs, outputs : float
+        Coupling to the inputs / outputs in the state coordinates as stored, relative
+        to the model's size (see :func:`_mode_sides`; 0 = exactly decoupled, 1 = the
+        largest possible).
+    joint : float
+        Product of input and output coupling in the analysis coordinates (after the
+        state scaling the staircase used): a diagonal change of state coordinates
+        moves one factor up and the other down, so the product is what decides.
+    method : {"eigenvector", "pbh"}
+    eigenvalue_condition : float
+        ``1 / |w^H v|`` for unit eigenvectors (``inf`` for a defective eigenvalue).
+    """
+
+    value: complex
+    classification: Classification
+    kind: HiddenKind | None
+    stability: Stability
+    inputs: float
+    outputs: float
+    joint: float
+    method: CouplingMethod
+    eigenvalue_condition: float
+
+    @property
+    def is_unstable(self) -> bool:
+        """True for unstable *and* marginal modes."""
+        return self.stability != "stable"
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "location": [float(self.value.real), float(self.value.imag)],
+            "classification": self.classification,
+            "kind": self.kind,
+            "stability": self.stability,
+            "unstable": self.is_unstable,
+            "coupling": {"inputs": float(self.inputs), "outputs": float(self.outputs),
+                         "joint": float(self.joint)},
+            "method": self.method,
+            "eigenvalue_condition": _json_float(float(self.eigenvalue_condition)),
+        }
+
+
+@dataclass(frozen=True)
+class ModeCouplings:
+    """Coupling and classification of every mode of a realization.
+
+    Attributes
+    ----------
+    modes : tuple of ModeCoupling
+        One per eigenvalue of A (sorted by real part, then imaginary part).
+    minimal_order : int
+        Number of modes that are not hidden (the staircase's minimal order).
+    hidden_tolerance : float
+        The staircase rank tolerance (relative).
+    nearly_hidden_level : float
+        Threshold on ``joint`` for "nearly_hidden".
+    decisions_clear : bool
+        Whether the staircase decisions behind "hidden" were clear.
+    discrete : bool
+    marginal_tol : float
+    """
+
+    modes: tuple[ModeCoupling, ...]
+    minimal_order: int
+    hidden_tolerance: float
+    nearly_hidden_level: float
+    decisions_clear: bool
+    discrete: bool
+    marginal_tol: float
+
+    @property
+    def flagged(self) -> tuple[ModeCoupling, ...]:
+        """The hidden and nearly hidden modes."""
+        return tuple(m for m in self.modes if m.classification != "coupled")
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "modes": [m.as_dict() for m in self.flagged],
+            "minimal_order": self.minimal_order,
+            "thresholds": {"hidden": float(self.hidden_tolerance),
+                           "nearly_hidden": float(self.nearly_hidden_level),
+                           "marginal": float(self.marginal_tol)},
+            "decisions_clear": self.decisions_clear,
+        }
+
+
+def _side_kind(inputs: float, outputs: float) -> HiddenKind:
+    if inputs <= 0.1 * outputs:
+        return "uncontrollable"
+    if outputs <= 0.1 * inputs:
+        return "unobservable"
+    return "uncontrollable_and_unobservable"
+
+
+def mode_couplings(
+    r: Realization,
+    *,
+    tol: float | None = None,
+    marginal_tol: float = DEFAULT_MARGINAL_TOL,
+    minimal: MinimalRealization | None = None,
+) -> ModeCouplings:
+    """Classify every mode as hidden, nearly hidden or coupled, with its coupling levels.
+
+    "Hidden" is the staircase's decision (:func:`minimal_realization`, so that the
+    hidden modes and the minimal order always agree); the couplings are measured per
+    mode (:class:`ModeCoupling`): eigenvector couplings for simple, well-conditioned
+    eigenvalues, PBH singular values (Eising's distance, restricted to the eigenvalue)
+    otherwise. The removed eigenvalues are assigned to the eigenvalues of A by an
+    optimal assignment of their distances.
+
+    Parameters
+    ----------
+    r : Realization
+        ``A : (n, n)``, ``B : (n, m)``, ``C : (p, n)``, ``D : (p, m)``.
+    tol : float, optional, keyword-only
+        Staircase rank tolerance (see :func:`minimal_realization`).
+    marginal_tol : float, keyword-only
+        Width of the marginal band (see :func:`mode_stability`).
+    minimal : MinimalRealization, optional, keyword-only
+        A minimal realization of ``r`` already computed with the same ``tol``.
+
+    Returns
+    -------
+    ModeCouplings
+
+    Raises
+    ------
+    InvalidModelError
+        If ``r`` is not a Realization or a tolerance is out of range.
+    NumericalTroubleError
+        If a decomposition fails.
+
+    Examples
+    --------
+    >>> r = Realization.from_arrays([[-1.0, 0.0], [0.0, 0.5]], [[1.0], [1.0]],
+    ...                             [[1.0, 1e-9]], [[0.0]])
+    >>> m = mode_couplings(r).modes[1]
+    >>> m.classification, m.kind, m.stability, f"{m.outputs:.1e}"
+    ('nearly_hidden', 'unobservable', 'unstable', '1.0e-09')
+    """
+    from scipy.optimize import linear_sum_assignment
+
+    r = _check_realization(r)
+    mode_stability(0.0, discrete=False, marginal_tol=marginal_tol)  # validates it
+    mr = minimal if minimal is not None else minimal_realization(r, tol=tol)
+    stored = _mode_sides(r)
+    n = r.order
+    if n and np.any(mr.state_scaling != 1.0):  # exact: powers of 2
+        analysis = _mode_sides(_scaled(r, np.asarray(mr.state_scaling)))
+        # same eigenvalues (a diagonal similarity); pair them by an optimal assignment
+        cost = np.abs(stored.values[:, None] - analysis.values[None, :])
+        _, perm = linear_sum_assignment(cost)
+        joint = analysis.inputs[perm] * analysis.outputs[perm]
+    else:
+        joint = stored.inputs * stored.outputs
+    removed = [(complex(z), "uncontrollable") for z in np.asarray(mr.uncontrollable_modes)] + [
+        (complex(z), "unobservable") for z in np.asarray(mr.unobservable_modes)]
+    hidden_kind: dict[int, str] = {}
+    if removed and n:
+        cost = np.abs(np.array([z for z, _ in removed])[:, None] - stored.values[None, :])
+        rows, cols = linear_sum_assignment(cost)
+        hidden_kind = {int(j): removed[int(i)][1] for i, j in zip(rows, cols)}
+    inputs, outputs = stored.inputs.copy(), stored.outputs.copy()
+    # inside a PBH cluster the levels are interchangeable: the smallest go to the
+    # members the staircase removed
+    for members in stored.clusters:
+        if len(members) < 2:
+            continue
+        order = sorted(members, key=lambda j: (j not in hidden_kind, j))
+        by_joint = sorted(members, key=lambda j: joint[j])
+        pairs = [(inputs[j], outputs[j], joint[j]) for j in by_joint]
+        for j, (i_, o_, p_) in zip(order, pairs):
+            inputs[j], outputs[j], joint[j] = i_, o_, p_
+    rtol = mr.tolerance
+    modes: list[ModeCoupling] = []
+    for j in range(n):
+        value = complex(stored.values[j])
+        kind: HiddenKind | None
+        if j in hidden_kind:
+            cls: Classification = "hidden"
+            kind = "uncontrollable" if hidden_kind[j] == "uncontrollable" else "unobservable"
+            if kind == "uncontrollable" and outputs[j] <= rtol:
+                kind = "uncontrollable_and_unobservable"
+        elif joint[j] <= NEARLY_HIDDEN_LEVEL:
+            cls, kind = "nearly_hidden", _side_kind(float(inputs[j]), float(outputs[j]))
+        else:
+            cls, kind = "coupled", None
+        modes.append(ModeCoupling(
+            value=value, classification=cls, kind=kind,
+            stability=mode_stability(value, discrete=r.is_discrete, marginal_tol=marginal_tol),
+            inputs=float(inputs[j]), outputs=float(outputs[j]), joint=float(joint[j]),
+            method=stored.methods[j], eigenvalue_condition=float(stored.conditions[j])))
+    modes.sort(key=lambda m: (m.value.real, m.value.imag))
+    return ModeCouplings(
+        modes=tuple(modes),
+        minimal_order=mr.order,
+        hidden_tolerance=float(rtol),
+        nearly_hidden_level=NEARLY_HIDDEN_LEVEL,
+        decisions_clear=bool(mr.decisions_clear),
+        discrete=r.is_discrete,
+        marginal_tol=float(marginal_tol),
+    )
+
+
 # ----------------------------------------------------------------------------- zeros
 def _zeros_slycot(r: Realization) -> ComplexArray:
     import slycot  # local import: optional at run time, fallback below
@@ -1326,6 +1706,9 @@ __all__ = [
     "HiddenModes",
     "KalmanDecomposition",
     "MinimalRealization",
+    "ModeCoupling",
+    "ModeCouplings",
+    "NEARLY_HIDDEN_LEVEL",
     "RankDecision",
     "StaircaseResult",
     "controllable_staircase",
@@ -1333,6 +1716,7 @@ __all__ = [
     "invariant_zeros",
     "kalman_decomposition",
     "minimal_realization",
+    "mode_couplings",
     "mode_stability",
     "observable_staircase",
     "state_scaling",
