@@ -254,15 +254,14 @@ def is_unstable_mode(p: complex, discrete: bool) -> bool:
 
 def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = None) -> tuple[Evidence, Any]:
     """Minimal order and hidden modes of one model (orthogonal staircase)."""
-    from .structure import minimal_realization
+    from .structure import minimal_realization, mode_couplings
 
     start = time.perf_counter()
     mr = minimal_realization(r, tol=tol)
-    discrete = r.is_discrete
-    hidden = [
-        (complex(p), "uncontrollable") for p in np.asarray(mr.uncontrollable_modes)
-    ] + [(complex(p), "unobservable") for p in np.asarray(mr.unobservable_modes)]
-    unstable_hidden = [(p, how) for p, how in hidden if is_unstable_mode(p, discrete)]
+    couplings = mode_couplings(r, tol=tol, minimal=mr)  # hidden / nearly hidden, with levels
+    flagged = [m.as_dict() for m in couplings.flagged]
+    hidden = [(complex(*m["location"]), m["kind"]) for m in flagged if m["classification"] == "hidden"]
+    unstable_hidden = [(complex(*m["location"]), m["kind"]) for m in flagged if m["unstable"]]
     if not hidden:
         summary = f"{label}: minimal (order {r.order})"
     else:
@@ -270,9 +269,9 @@ def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = No
             f"{label}: order {r.order}, minimal order {mr.order}; "
             f"{len(hidden)} hidden mode(s)"
         )
-        if unstable_hidden:
-            where = ", ".join(f"{_fmt_complex(p)} ({how})" for p, how in unstable_hidden)
-            summary += f", UNSTABLE hidden mode(s) at {where}"
+    if unstable_hidden:
+        where = ", ".join(f"{_fmt_complex(p)} ({how})" for p, how in unstable_hidden)
+        summary += f", UNSTABLE hidden or nearly hidden mode(s) at {where}"
     clear = bool(mr.decisions_clear)
     if not clear:
         summary += "; some rank decisions had no clear singular-value gap"
@@ -292,10 +291,9 @@ def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = No
         details={
             "order": r.order,
             "minimal_order": mr.order,
-            "hidden_modes": [
-                {"location": [p.real, p.imag], "kind": how, "unstable": is_unstable_mode(p, discrete)}
-                for p, how in hidden
-            ],
+            "hidden_modes": [m for m in flagged if m["classification"] == "hidden"],
+            "nearly_hidden_modes": [m for m in flagged if m["classification"] == "nearly_hidden"],
+            "mode_coupling_thresholds": couplings.as_dict()["thresholds"],
             "unstable_hidden_modes": len(unstable_hidden),
             "rank_decisions": decisions,
             "smallest_gap": worst_gap,

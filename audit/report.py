@@ -296,12 +296,23 @@ def render_inspect_text(data: dict[str, Any]) -> str:
                  f"largest eigenvalue condition {c['largest_eigenvalue_condition']:.2e}")
     if p.get("claimed_form"):
         cf = p["claimed_form"]
-        lines.append(f"  claimed form: {cf['claimed']} -> " + ("holds" if cf.get("holds") else "does NOT hold"))
+        verdict = ("not checkable by pattern" if cf.get("checked") is False
+                   else "holds" if cf.get("holds") else "does NOT hold")
+        lines.append(f"  claimed form: {cf['claimed']} -> {verdict}")
     rec = p.get("recognised_forms")
     if rec and rec.get("forms"):
         lines.append("  recognised forms: " + ", ".join(str(f) for f in rec["forms"]))
-    for h in p["hidden_modes"]:
-        lines.append(f"  hidden mode {_pt(h['location'])} ({h['kind']}{', UNSTABLE' if h['unstable'] else ''})")
+    for h in p["hidden_modes"] + p.get("nearly_hidden_modes", []):
+        c = h.get("coupling", {})
+        label = "hidden mode" if h.get("classification", "hidden") == "hidden" else "nearly hidden mode"
+        levels = (f"; coupling: inputs {c['inputs']:.2g}, outputs {c['outputs']:.2g}, "
+                  f"joint {c['joint']:.2g}") if c else ""
+        lines.append(f"  {label} {_pt(h['location'])} ({h['kind']}"
+                     f"{', UNSTABLE' if h['unstable'] else ''}{levels})")
+    thr = p.get("mode_coupling_thresholds")
+    if thr and (p["hidden_modes"] or p.get("nearly_hidden_modes")):
+        lines.append(f"  (hidden: removed by the staircase at rank tolerance {thr['hidden']:.1e}; "
+                     f"nearly hidden: joint coupling <= {thr['nearly_hidden']:.1e})")
     for prob in data["problems"]:
         lines.append(_wrap("!! " + prob, "  "))
     for note in data["notes"]:
