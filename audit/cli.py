@@ -57,6 +57,10 @@ def build_parser() -> argparse.ArgumentParser:
     cmp_.add_argument("--escalation-seconds", type=seconds, default=ESCALATION_SECONDS,
                       help="time budget per pair for extended-precision re-evaluation "
                       f"(default {ESCALATION_SECONDS:g}; 0 disables it)")
+    cmp_.add_argument("--accept-hidden-instability", type=_reason, default=None, metavar="REASON",
+                      help="accept knowingly that a model has an unstable or marginal hidden or "
+                      "nearly hidden mode the reference lacks; REASON is printed in the report "
+                      "and the exit status follows the input-output verdict alone")
     ins = sub.add_parser("inspect", help="report one model's properties and problems")
     ins.add_argument("model", metavar="MODEL")
     ins.add_argument("--format", choices=("text", "json"), default="text")
@@ -145,8 +149,12 @@ def _compare(args: argparse.Namespace) -> int:
         except IncompatibleModelsError as exc:
             raise IncompatibleModelsError(f"{path}: {exc}") from None
     verdict = overall_verdict(pairs)
+    from .internal_stability import model_modes, unaccepted
+
+    modes = [model_modes(m, label=m.name) for m in models]
     data = compare_report(models, list(args.models), pairs, options, verdict,
-                          time.perf_counter() - start, signals=signals)
+                          time.perf_counter() - start, signals=signals, modes=modes,
+                          accepted_reason=args.accept_hidden_instability)
     if args.format == "html":
         from .html_report import render_compare_html
 
@@ -155,10 +163,21 @@ def _compare(args: argparse.Namespace) -> int:
         text = render_json(data) if args.format == "json" else render_compare_text(data)
     if args.output:
         _write_new_file(args.output, text)
-        sys.stdout.write(f"lti-audit compare: {verdict.upper()}; report written to {args.output}\n")
+        from .report import compare_headline
+
+        sys.stdout.write(f"{compare_headline(data)}; report written to {args.output}\n")
     else:
         sys.stdout.write(text)
+    if unaccepted(data["problems"]):  # a new unstable hidden mode fails whatever the verdict
+        return EXIT_DIFFERENT
     return {"equivalent": EXIT_OK, "different": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[verdict]
+
+
+def _reason(text: str) -> str:
+    """An acceptance reason: non-empty text."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("expected a non-empty reason (why the hidden mode is accepted)")
+    return text.strip()
 
 
 def _write_new_file(path: str, text: str) -> None:

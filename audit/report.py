@@ -59,6 +59,51 @@ class PairEntry(_Strict):
     seconds: float
 
 
+class ModeCouplingEntry(_Strict):
+    inputs: float = Field(description="Coupling to the inputs in the stored state coordinates, "
+                          "relative to the model's size (0: decoupled, 1: largest possible)")
+    outputs: float = Field(description="Coupling to the outputs, same scale")
+    joint: float | None = Field(default=None, description="Input times output coupling in the "
+                                "coordinates the staircase analysed (after its state scaling); "
+                                "this decides 'nearly_hidden'")
+
+
+class HiddenModeEntry(_Strict):
+    """A hidden or nearly hidden mode of one model (for plots: mark and highlight it)."""
+
+    location: list[float] = Field(description="[re, im] (s-plane, or z-plane for discrete time)")
+    classification: Literal["hidden", "nearly_hidden"]
+    kind: Literal["uncontrollable", "unobservable", "uncontrollable_and_unobservable"] | None
+    stability: Literal["stable", "marginal", "unstable"]
+    unstable: bool = Field(description="True for unstable and marginally stable modes")
+    coupling: ModeCouplingEntry
+    method: Literal["eigenvector", "pbh"] = Field(description="How the coupling was measured")
+    eigenvalue_condition: float | str
+
+
+class ModeThresholds(_Strict):
+    hidden: float = Field(description="Staircase rank tolerance (relative) behind 'hidden'")
+    nearly_hidden: float = Field(description="Joint coupling at or below which a kept mode is "
+                                 "'nearly_hidden'")
+    marginal: float = Field(description="Relative width of the marginal band")
+
+
+class ProblemEntry(_Strict):
+    """A problem beyond the input-output verdict; the exit status follows the unaccepted ones."""
+
+    kind: Literal["unstable_hidden_mode", "marginal_hidden_mode"]
+    model: str = Field(description="Name of the model that has the problem")
+    model_index: int = Field(description="Index of that model in `models`")
+    location: list[float] = Field(description="[re, im] of the mode")
+    coupling: ModeCouplingEntry
+    classification: Literal["hidden", "nearly_hidden"]
+    decoupled_from: Literal["inputs", "outputs", "inputs_and_outputs"]
+    accepted: bool = Field(description="Accepted explicitly (command-line flag or manifest "
+                           "field); an accepted problem does not fail the gate")
+    reason: str | None = Field(description="The reason given with the acceptance")
+    message: str
+
+
 class ModelEntry(_Strict):
     name: str
     source: str
@@ -70,6 +115,10 @@ class ModelEntry(_Strict):
                                           "inputs, from the model document, when given")
     output_names: list[str] | None = Field(default=None, description="Names (units) of the "
                                            "outputs, from the model document, when given")
+    hidden_modes: list[HiddenModeEntry] | None = Field(default=None, description="Hidden and "
+                                                       "nearly hidden modes of the stored model")
+    mode_thresholds: ModeThresholds | None = Field(default=None, description="Thresholds "
+                                                   "behind the classification of hidden_modes")
 
 
 class Tolerances(_Strict):
@@ -88,6 +137,9 @@ class CompareReport(_Strict):
     tolerances: Tolerances
     models: list[ModelEntry]
     comparisons: list[PairEntry]
+    problems: list[ProblemEntry] = Field(description="Problems beyond the input-output verdict "
+                                         "(a new unstable or marginal hidden or nearly hidden "
+                                         "mode); any unaccepted one makes the exit status 1")
     seconds: float
     caution: str
 
@@ -136,9 +188,32 @@ def signal_labels(doc: Any) -> dict[str, list[str] | None]:
 
 def compare_report(models: list[Any], sources: list[str], pairs: list[Any], options: Any,
                    verdict: str, seconds: float,
-                   signals: list[dict[str, list[str] | None]] | None = None) -> dict[str, Any]:
-    """Assemble and validate the compare report (a plain dict following CompareReport)."""
+                   signals: list[dict[str, list[str] | None]] | None = None, *,
+                   modes: list[Any] | None = None,
+                   accepted_reason: str | None = None) -> dict[str, Any]:
+    """Assemble and validate the compare report (a plain dict following CompareReport).
+
+    ``modes`` are the :class:`audit.internal_stability.ModelModes` of ``models`` (computed
+    here when not given); the top-level ``problems`` list follows from them
+    (:func:`audit.internal_stability.hidden_mode_problems`), every one accepted with
+    ``accepted_reason`` when that is given.
+    """
+    from .internal_stability import hidden_mode_problems, model_modes
+
+    if modes is None:
+        modes = [model_modes(r, label=r.name, rank_tol=getattr(options, "rank_tol", None))
+                 for r in models]
+    problems = hidden_mode_problems(modes[0], list(modes[1:]), accepted_reason=accepted_reason)
     summary = _compare_summary(pairs, verdict)
+    open_problems = [p for p in problems if not p["accepted"]]
+    if open_problems:
+        summary += f" Problem: {open_problems[0]['message']}" + (
+            f" (and {len(open_problems) - 1} more problem(s))." if len(open_problems) > 1 else ".")
+    entries = [model_entry(r, s, sig) for r, s, sig in
+               zip(models, sources, signals or [None] * len(models))]
+    for entry, mm in zip(entries, modes):
+        entry["hidden_modes"] = [dict(m) for m in mm.modes]
+        entry["mode_thresholds"] = dict(mm.thresholds)
     data = {
         "report": "compare",
         "lti_audit_version": package_version(),
@@ -146,9 +221,9 @@ def compare_report(models: list[Any], sources: list[str], pairs: list[Any], opti
         "summary": summary,
         "tolerances": {"rtol": options.rtol, "rank_tol": options.rank_tol,
                        "escalation_seconds": options.escalation_seconds},
-        "models": [model_entry(r, s, sig) for r, s, sig in
-                   zip(models, sources, signals or [None] * len(models))],
+        "models": entries,
         "comparisons": [p.as_dict() for p in pairs],
+        "problems": problems,
         "seconds": round(seconds, 6),
         "caution": CAUTION,
     }
@@ -210,8 +285,25 @@ def _num(v: Any) -> str:
     return f"{float(v):.3g}"
 
 
+def compare_headline(data: dict[str, Any]) -> str:
+    """The first line of the compare output: the verdict, and the first unaccepted
+    problem when there is one (e.g. "EQUIVALENT input-output, but vendor.json has an
+    unstable hidden mode at 0.5 ...")."""
+    verdict = data["verdict"].upper()
+    problems = data.get("problems") or []
+    open_problems = [p for p in problems if not p["accepted"]]
+    if not open_problems:
+        accepted = len(problems)
+        return f"lti-audit compare: {verdict}" + (
+            f" input-output; {accepted} hidden-mode problem(s) accepted" if accepted else "")
+    head = f"lti-audit compare: {verdict} input-output, but {open_problems[0]['message']}"
+    if len(open_problems) > 1:
+        head += f" (and {len(open_problems) - 1} more problem(s))"
+    return head
+
+
 def render_compare_text(data: dict[str, Any]) -> str:
-    lines = [f"lti-audit compare: {data['verdict'].upper()}  (rtol {data['tolerances']['rtol']:.1e})"]
+    lines = [f"{compare_headline(data)}  (rtol {data['tolerances']['rtol']:.1e})"]
     for i, m in enumerate(data["models"]):
         role = "reference" if i == 0 else f"model {i}"
         dom = "continuous" if m["sample_period"] is None else f"discrete T={m['sample_period']:g}s"
@@ -235,6 +327,17 @@ def render_compare_text(data: dict[str, Any]) -> str:
             lines.append("   diagnosis:")
             for line in _diagnosis_lines(diag, data["models"][0]):
                 lines.append(_wrap(line, "     "))
+    problems = data.get("problems") or []
+    if problems:
+        lines.append("")
+        lines.append("problems (internal stability):")
+        for p in problems:
+            state = f"ACCEPTED ({p['reason']})" if p["accepted"] else "NOT ACCEPTED"
+            lines.append(_wrap(f"!! {p['message']} -- {state}", "   "))
+        th = data["models"][0].get("mode_thresholds")
+        if th:
+            lines.append(f"   (hidden: removed by the staircase at rank tolerance {th['hidden']:.1e}; "
+                         f"nearly hidden: joint coupling <= {th['nearly_hidden']:.1e})")
     lines.append("")
     lines.append(_wrap(data["summary"], ""))
     lines.append(data["caution"])
