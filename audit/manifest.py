@@ -26,6 +26,11 @@ A claims manifest is a TOML file (TOML v1.0.0, T. Preston-Werner, 2021), by defa
     discretization = {method = "zoh", of = "models/speed_tf.json"}
     rtol = 1e-8
 
+    [[accept_hidden_instability]]   # optional; a team knowingly accepts such a mode
+    model = "models/valve_supplier.json"
+    location = [0.5, 0.0]           # optional; omitted: every such mode of that model
+    reason = "stabilised by the drive's inner current loop (review 2024-117)"
+
 Model paths are relative to the manifest's directory, written with ``/``. Each claim
 says exactly one of ``expect``, ``form`` or ``discretization``:
 
@@ -47,6 +52,13 @@ says exactly one of ``expect``, ``form`` or ``discretization``:
 ``discretization = {method = ..., of = ..., prewarp_frequency = ...}``
     every listed (discrete-time) model is that discretization of the continuous-time
     model ``of`` (:func:`audit.discretization.check_discretization_claim`).
+
+Internal stability is part of "unchanged" (:mod:`audit.internal_stability`): an
+``equivalent`` or ``similar`` claim fails when a model has an unstable or marginally
+stable hidden or nearly hidden mode that the first model does not have, and
+``check --against`` classifies such a file ``changed_internal_stability``, unless an
+``[[accept_hidden_instability]]`` entry names the model (and, when given, the mode's
+location) with a reason; the reason is printed with the result.
 
 Tolerances: a claim's own ``rtol``, else the caller's default (``--rtol``), else the
 manifest's top-level ``rtol``, else :data:`audit.evidence.DEFAULT_RTOL` (form claims:
@@ -89,12 +101,16 @@ __all__ = [
     "CoordinateChange",
     "DiscretizationSpec",
     "FileSelection",
+    "HiddenInstabilityAcceptance",
     "InvalidManifestError",
     "ManifestFile",
+    "accepted_reason",
     "coordinate_change",
     "evaluate_claim",
     "evaluate_claims",
     "glob_matches",
+    "internal_stability_problems",
+    "problem_sentences",
     "load_claims_manifest",
     "parse_claims_manifest",
 ]
@@ -344,6 +360,76 @@ class Claim(BaseModel):
         return f"{spec.method}{pw} discretization of {spec.of}"
 
 
+class HiddenInstabilityAcceptance(BaseModel):
+    """An explicit acceptance of an unstable / marginal hidden or nearly hidden mode."""
+
+    model_config = _CONFIG
+
+    model: StrictStr = Field(description="The model file that may have the mode, relative "
+                             "to the manifest.")
+    location: list[float] | None = Field(
+        default=None, min_length=2, max_length=2,
+        description="[re, im] of the accepted mode (matched within a relative 1e-6); "
+        "omitted: every such mode of the model.")
+    reason: StrictStr = Field(description="Why the mode is accepted; printed in the reports.")
+
+    @field_validator("model")
+    @classmethod
+    def _model(cls, value: str) -> str:
+        return _check_relative_path(value)
+
+    @field_validator("reason")
+    @classmethod
+    def _reason(cls, value: str) -> str:
+        if not value.strip():
+            raise ValueError("is empty; say why the hidden mode is accepted")
+        return value.strip()
+
+    def covers(self, model: str, location: Sequence[float]) -> bool:
+        """Whether this acceptance applies to the mode at ``location`` of ``model``."""
+        from .internal_stability import MODE_MATCH_RTOL
+
+        if PurePosixPath(self.model) != PurePosixPath(model):
+            return False
+        if self.location is None:
+            return True
+        z, w = complex(*self.location), complex(*location)
+        return abs(z - w) <= MODE_MATCH_RTOL * max(1.0, abs(z))
+
+
+def accepted_reason(acceptances: Sequence[HiddenInstabilityAcceptance], model: str,
+                    location: Sequence[float]) -> str | None:
+    """The reason of the first acceptance covering that mode, else None."""
+    for acc in acceptances:
+        if acc.covers(model, location):
+            return acc.reason
+    return None
+
+
+def internal_stability_problems(reference: Any, other: Any, model_path: str,
+                                acceptances: Sequence[HiddenInstabilityAcceptance],
+                                rank_tol: float | None = None) -> list[dict[str, Any]]:
+    """Problems of ``other`` against ``reference`` (:func:`audit.internal_stability.
+    hidden_mode_problems`), each accepted when an acceptance covers it."""
+    from .internal_stability import hidden_mode_problems, model_modes
+
+    ref = model_modes(reference, label=reference.name, rank_tol=rank_tol)
+    new = model_modes(other, label=other.name, rank_tol=rank_tol)
+    problems = hidden_mode_problems(ref, [new])
+    for p in problems:
+        why = accepted_reason(acceptances, model_path, p["location"])
+        if why is not None:
+            p["accepted"], p["reason"] = True, why
+    return problems
+
+
+def problem_sentences(problems: Sequence[dict[str, Any]]) -> str:
+    """Plain sentences for an explanation: unaccepted problems, then accepted ones."""
+    out = [f"Internal stability changed: {p['message']}." for p in problems if not p["accepted"]]
+    out += [f"Accepted: {p['message']} (reason: {p['reason']})." for p in problems if p["accepted"]]
+    return " ".join(out)
+
+
 class ClaimsManifest(BaseModel):
     """An lti-audit claims manifest (TOML), version 1."""
 
@@ -356,6 +442,10 @@ class ClaimsManifest(BaseModel):
                                  description="Files compared by `lti-audit check --against`.")
     claims: list[Claim] = Field(default_factory=list, alias="claim",
                                 description="The claims, written as [[claim]] tables.")
+    accept_hidden_instability: list[HiddenInstabilityAcceptance] = Field(
+        default_factory=list,
+        description="Unstable or marginal hidden / nearly hidden modes a team accepts "
+        "knowingly, each with a reason ([[accept_hidden_instability]] tables).")
 
     @field_validator("rtol")
     @classmethod
@@ -749,6 +839,7 @@ def evaluate_claim(
     directory: str | Path,
     default_rtol: float | None = None,
     escalation_seconds: float | None = None,
+    acceptances: Sequence[HiddenInstabilityAcceptance] = (),
     _models: _Models | None = None,
 ) -> ClaimResult:
     """Check one claim.
@@ -765,6 +856,8 @@ def evaluate_claim(
     escalation_seconds : float or None, keyword-only
         Extended-precision budget per pair (:class:`audit.verdict.Options`); 0 disables
         it, ``None`` keeps the default.
+    acceptances : sequence of HiddenInstabilityAcceptance, keyword-only
+        The manifest's ``[[accept_hidden_instability]]`` entries.
 
     Returns
     -------
@@ -797,7 +890,7 @@ def evaluate_claim(
         elif kind == "discretization":
             fields = _check_discretization(claim, models, rtol)
         else:
-            fields = _check_relation(claim, models, rtol, escalation_seconds)
+            fields = _check_relation(claim, models, rtol, escalation_seconds, acceptances)
     except (InvalidModelError, IncompatibleModelsError) as exc:
         fields = {"status": "error", "explanation": str(exc)}
     except NumericalTroubleError as exc:
@@ -807,7 +900,8 @@ def evaluate_claim(
 
 
 def _check_relation(claim: Claim, models: _Models, rtol: float,
-                    escalation_seconds: float | None) -> dict[str, Any]:
+                    escalation_seconds: float | None,
+                    acceptances: Sequence[HiddenInstabilityAcceptance] = ()) -> dict[str, Any]:
     from .realization import check_comparable
     from .verdict import Options, compare_pair
 
@@ -851,6 +945,13 @@ def _check_relation(claim: Claim, models: _Models, rtol: float,
                             f"not a change of state coordinates of it: {words}.")
         else:
             outcome, sentence = "holds", pair.explanation
+        if expect in ("equivalent", "similar"):
+            problems = internal_stability_problems(rs[0], r, r.name or "", acceptances)
+            if problems:
+                record["problems"] = problems
+                sentence += " " + problem_sentences(problems)
+                if outcome == "holds" and any(not p["accepted"] for p in problems):
+                    outcome = "fails"
         verdicts.append(outcome)
         sentences.append(sentence)
         details.append(record)
@@ -955,7 +1056,8 @@ def evaluate_claims(
     default = rtol if rtol is not None else manifest.content.rtol
     return tuple(
         evaluate_claim(c, index=i, directory=manifest.directory, default_rtol=default,
-                       escalation_seconds=escalation_seconds, _models=models)
+                       escalation_seconds=escalation_seconds,
+                       acceptances=manifest.content.accept_hidden_instability, _models=models)
         for i, c in enumerate(manifest.content.claims, start=1)
     )
 

@@ -84,7 +84,7 @@ BAD_MANIFESTS = [
                  "'tustin', 'matched' or 'impulse'", id="discretization-method"),
     pytest.param('[[claims]]\nmodels = ["a.json", "b.json"]\nexpect = "equivalent"\n',
                  "m.toml: claims: unknown key (expected one of: lti_audit_manifest, rtol, files, "
-                 "claim); did you mean 'claim'?", id="plural-claims"),
+                 "claim, accept_hidden_instability); did you mean 'claim'?", id="plural-claims"),
     pytest.param('[files]\ninclude = "*.json"\n', "m.toml: files.include: expected an array, "
                  "got '*.json'", id="include-not-array"),
     pytest.param('lti_audit_manifest = 2\n', "m.toml: lti_audit_manifest: got 2, expected 1",
