@@ -116,9 +116,10 @@ def problem_message(label: str, m: dict[str, Any], reference_label: str) -> str:
     state = "unstable" if m["stability"] == "unstable" else "marginally stable"
     what = "hidden" if m["classification"] == "hidden" else "nearly hidden"
     c = m["coupling"]
-    return (f"{label} has {'an' if state == 'unstable' else 'a'} {state} {what} mode at "
+    text = (f"{label} has {'an' if state == 'unstable' else 'a'} {state} {what} mode at "
             f"{_where(m)} ({m['kind']}; input coupling {c['inputs']:.2g}, output coupling "
-            f"{c['outputs']:.2g}) that {reference_label} does not have")
+            f"{c['outputs']:.2g})")
+    return text + (f" that {reference_label} does not have" if reference_label else "")
 
 
 def hidden_mode_problems(reference: ModelModes, others: list[ModelModes], *,
@@ -139,6 +140,8 @@ def hidden_mode_problems(reference: ModelModes, others: list[ModelModes], *,
     Parameters
     ----------
     reference : ModelModes
+        With an empty ``label`` and no modes when there is no reference model (every
+        unstable hidden mode is then a problem).
     others : list of ModelModes
         In the order of the report's models after the reference.
     accepted_reason : str or None, keyword-only

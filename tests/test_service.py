@@ -196,6 +196,26 @@ def test_unstable_hidden_mode_fails_stability_claim(svc: Service) -> None:
     assert rec["claims_outcome"] == "fail"
 
 
+def test_unaccepted_unstable_hidden_mode_fails_the_submission_without_a_claim(svc: Service) -> None:
+    # issue 11: no stability claim at all, the transfer functions agree, and still the
+    # supplier's new unstable hidden mode fails the submission unless accepted
+    body = {"models": [demo("valve_actuator_supplier")],
+            "reference": demo("valve_actuator_reference")}
+    rec = svc.submit(body).json()
+    assert rec["verdict"] == "equivalent"
+    assert rec["claims_outcome"] == "fail"
+    entry = _claims(rec)["internal_stability"]
+    assert entry["outcome"] == "fails" and "unstable hidden mode" in entry["message"]
+    assert [p["accepted"] for p in rec["report"]["comparison"]["problems"]] == [False]
+    body["accept_hidden_instability"] = "supplier's inner loop stabilises it (review VA-17)"
+    rec = svc.submit(body).json()
+    assert rec["claims_outcome"] == "hold"
+    entry = _claims(rec)["internal_stability"]
+    assert entry["outcome"] == "holds" and entry["details"]["reason"].startswith("supplier's inner loop")
+    (problem,) = rec["report"]["comparison"]["problems"]
+    assert problem["accepted"] and problem["reason"] == body["accept_hidden_instability"]
+
+
 def test_bandwidth_closed_forms_and_python_control() -> None:
     from audit.realization import Realization
 

@@ -142,6 +142,10 @@ class Submission(_Strict):
     claim_rtol: float | None = Field(default=None, gt=0, lt=1,
                                      description=f"Tolerance of numeric claims (default {DEFAULT_CLAIM_RTOL:g})")
     escalation_seconds: float | None = Field(default=None, ge=0, le=20)
+    accept_hidden_instability: str | None = Field(
+        default=None, min_length=1, max_length=2000,
+        description="Reason for accepting knowingly an unstable or marginal hidden or nearly "
+        "hidden mode that the reference lacks; without it such a mode fails the submission")
 
 
 class Tolerances(_Strict):
@@ -502,6 +506,22 @@ def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]
     return out
 
 
+def _internal_stability_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]:
+    """One failing entry per unstable / marginal hidden or nearly hidden mode of a submitted
+    model that the reference lacks (every such mode without a reference), holding when the
+    submission accepts it with a reason (:mod:`audit.internal_stability`)."""
+    from ..internal_stability import ModelModes, hidden_mode_problems, model_modes
+
+    ref = (model_modes(ps.reference, label="the reference", rank_tol=tol.rank_tol)
+           if ps.reference is not None else ModelModes("", (), {}, 0, True))
+    mods = [model_modes(r, label=r.name, rank_tol=tol.rank_tol) for r in ps.models]
+    problems = hidden_mode_problems(ref, mods, accepted_reason=ps.submission.accept_hidden_instability)
+    return [_claim(p["model"], "internal_stability", "no new unstable or marginal hidden mode",
+                   p["location"], None, "holds" if p["accepted"] else "fails",
+                   p["message"] + (f"; accepted: {p['reason']}" if p["accepted"] else ""), p)
+            for p in problems]
+
+
 def _claims_outcome(claims: list[dict[str, Any]]) -> str:
     if not claims:
         return "none"
@@ -610,8 +630,9 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
         pairs = compare_models(compared, options=options)
         verdict = overall_verdict(pairs)
         compare_data = compare_report(compared, sources, pairs, options, verdict,
-                                      time.perf_counter() - t0)
-    claims = _check_claims(ps, tol)
+                                      time.perf_counter() - t0,
+                                      accepted_reason=ps.submission.accept_hidden_instability)
+    claims = _check_claims(ps, tol) + _internal_stability_claims(ps, tol)
     claims_outcome = _claims_outcome(claims)
     failing = [c for c in claims if c["outcome"] != "holds"]
     summary = (compare_data["summary"] if compare_data else
