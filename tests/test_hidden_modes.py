@@ -1,0 +1,223 @@
+"""Hidden and nearly hidden modes: detection that rounding noise cannot defeat (issue 11).
+
+The example of the issue: A = [[-1.2, 2.7, 0], [-2.7, -10.8, 0], [0, 0, 0.5]],
+B = [[-0.37], [-0.37], [0.2]], C = [[-0.37, 0.37, c3]], D = 0. A is block diagonal, so the
+third state is an eigenvector of A and of A^T for the eigenvalue 0.5 (closed form): its
+output coupling |C v| / ||C||_2 is |c3| / ||C||_2 and its input coupling |w^H B| / ||B||_2
+is 0.2 / ||B||_2. Independent references named beside each check: mpmath SVD of the
+observability / controllability matrices at 50 digits, and slycot's TB01PD staircase.
+"""
+
+from __future__ import annotations
+
+import math
+
+import mpmath
+import numpy as np
+import pytest
+
+from audit.realization import Realization
+from audit.structure import (
+    NEARLY_HIDDEN_LEVEL,
+    minimal_realization,
+    mode_couplings,
+    state_scaling,
+)
+
+A = [[-1.2, 2.7, 0.0], [-2.7, -10.8, 0.0], [0.0, 0.0, 0.5]]
+B = [[-0.37], [-0.37], [0.2]]
+
+
+def example(c3: float, *, dual: bool = False, period: float | None = None,
+            a: list[list[float]] | None = None) -> Realization:
+    aa = np.array(a if a is not None else A)
+    b = np.array(B)
+    c = np.array([[-0.37, 0.37, c3]])
+    if dual:  # (A^T, C^T, B^T): the same mode, now uncontrollable
+        return Realization.from_arrays(aa.T, c.T, b.T, [[0.0]], period)
+    return Realization.from_arrays(aa, b, c, [[0.0]], period)
+
+
+def mode_at(r: Realization, value: complex):
+    (m,) = [m for m in mode_couplings(r).modes if abs(m.value - value) < 1e-9]
+    return m
+
+
+def mp_relative_singular_values(matrix: np.ndarray) -> list[float]:
+    """Singular values of the stored doubles, at 50 digits (mpmath), largest first,
+    divided by the largest."""
+    with mpmath.workdps(50):
+        s = mpmath.svd_r(mpmath.matrix(matrix.tolist()), compute_uv=False)
+        vals = sorted((s[i] for i in range(len(s))), reverse=True)
+        return [float(v / vals[0]) for v in vals]
+
+
+def observability_matrix(r: Realization) -> np.ndarray:
+    a, c = np.asarray(r.a), np.asarray(r.c)
+    return np.vstack([c @ np.linalg.matrix_power(a, k) for k in range(r.order)])
+
+
+def slycot_minimal_order(r: Realization) -> int:
+    slycot = pytest.importorskip("slycot")
+    n, m, p = r.order, r.n_inputs, r.n_outputs
+    b = np.zeros((n, max(m, p)))
+    b[:, :m] = r.b
+    c = np.zeros((max(1, m, p), n))
+    c[:p, :] = r.c
+    out = slycot.tb01pd(n, m, p, np.array(r.a), b, c, job="M", equil="N", tol=1e-10)
+    return int(out[3])
+
+
+# The example and its variants: C entry 0 (exact), rounding level (1e-17, 3e-17, 1e-15),
+# 1e-13, 1e-11: hidden; 1e-6: nearly hidden, with its level.
+HIDDEN_VARIANTS = [0.0, 1e-17, 3e-17, 1e-15, 1e-13, 1e-11]
+
+
+@pytest.mark.parametrize("c3", HIDDEN_VARIANTS)
+def test_example_unobservable_unstable_mode_is_hidden(c3: float) -> None:
+    r = example(c3)
+    mr = minimal_realization(r)
+    assert mr.order == 2 and mr.decisions_clear
+    m = mode_at(r, 0.5)
+    assert (m.classification, m.kind, m.stability) == ("hidden", "unobservable", "unstable")
+    norm_c = math.hypot(math.hypot(0.37, 0.37), c3)
+    norm_b = math.sqrt(2 * 0.37**2 + 0.2**2)
+    # closed form (block-diagonal A, eigenvectors e3): the coupling levels themselves
+    assert m.outputs == pytest.approx(abs(c3) / norm_c, rel=1e-12, abs=1e-30)
+    assert m.inputs == pytest.approx(0.2 / norm_b, rel=1e-12)
+    # independent: mpmath SVD of the observability matrix of the stored doubles, 50
+    # digits; its smallest relative singular value is below the rank tolerance 1e-10
+    rel = mp_relative_singular_values(observability_matrix(r))
+    assert rel[-1] < 1e-10 and rel[-2] > 1e-3
+    # independent: SLICOT TB01PD staircase (slycot), without its own balancing
+    assert slycot_minimal_order(r) == 2
+
+
+def test_example_weakly_coupled_mode_is_nearly_hidden_with_its_level() -> None:
+    r = example(1e-6)
+    mr = minimal_realization(r)
+    assert mr.order == 3 and mr.decisions_clear
+    m = mode_at(r, 0.5)
+    assert (m.classification, m.kind, m.stability) == ("nearly_hidden", "unobservable", "unstable")
+    # closed form: output coupling 1e-6 / ||C||_2 = 1.91e-6, input coupling 0.2 / ||B||_2
+    assert m.outputs == pytest.approx(1e-6 / math.hypot(0.37, 0.37), rel=1e-9)
+    assert m.inputs == pytest.approx(0.2 / math.sqrt(2 * 0.37**2 + 0.2**2), rel=1e-12)
+    assert m.joint <= NEARLY_HIDDEN_LEVEL
+    # independent: mpmath; the observability matrix has full rank, weakly (7e-9 relative)
+    rel = mp_relative_singular_values(observability_matrix(r))
+    assert 1e-10 < rel[-1] < 1e-6
+    assert slycot_minimal_order(r) == 3  # independent: slycot TB01PD keeps it
+
+
+def test_coupled_mode_is_coupled() -> None:
+    m = mode_at(example(0.3), 0.5)
+    assert m.classification == "coupled" and m.kind is None
+    assert m.outputs == pytest.approx(0.3 / math.sqrt(2 * 0.37**2 + 0.09), rel=1e-12)  # closed form
+
+
+@pytest.mark.parametrize("c3", [0.0, 3e-17, 1e-11])
+def test_dual_example_is_uncontrollable(c3: float) -> None:
+    r = example(c3, dual=True)
+    assert minimal_realization(r).order == 2
+    m = mode_at(r, 0.5)
+    assert (m.classification, m.kind, m.stability) == ("hidden", "uncontrollable", "unstable")
+    # independent: mpmath SVD of the controllability matrix [B, AB, A^2 B] (50 digits)
+    a, b = np.asarray(r.a), np.asarray(r.b)
+    ctrb = np.hstack([np.linalg.matrix_power(a, k) @ b for k in range(3)])
+    assert mp_relative_singular_values(ctrb)[-1] < 1e-10
+    assert slycot_minimal_order(r) == 2  # independent: slycot TB01PD
+
+
+def test_dual_weakly_coupled_mode_is_nearly_hidden() -> None:
+    m = mode_at(example(1e-6, dual=True), 0.5)
+    assert (m.classification, m.kind) == ("nearly_hidden", "uncontrollable")
+    assert m.inputs == pytest.approx(1e-6 / math.hypot(0.37, 0.37), rel=1e-9)  # closed form
+
+
+# discrete time: the 2x2 block with eigenvalues inside the unit circle, the hidden mode at
+# z = 1.5 (|z| > 1: unstable) -- closed form eigenvalues of [[0.5, 0.2], [-0.2, 0.4]]:
+# 0.45 +- j 0.1936 (modulus 0.49)
+A_DISCRETE = [[0.5, 0.2, 0.0], [-0.2, 0.4, 0.0], [0.0, 0.0, 1.5]]
+
+
+@pytest.mark.parametrize("c3, expected", [(0.0, "hidden"), (3e-17, "hidden"), (1e-11, "hidden"),
+                                          (1e-6, "nearly_hidden")])
+def test_discrete_unstable_mode_outside_the_unit_circle(c3: float, expected: str) -> None:
+    r = example(c3, period=0.01, a=A_DISCRETE)
+    m = mode_at(r, 1.5)
+    assert (m.classification, m.kind, m.stability) == (expected, "unobservable", "unstable")
+    assert slycot_minimal_order(r) == (2 if expected == "hidden" else 3)  # slycot TB01PD
+
+
+def test_hidden_integrator_is_marginal() -> None:
+    a = [[-1.2, 2.7, 0.0], [-2.7, -10.8, 0.0], [0.0, 0.0, 0.0]]
+    m = mode_at(example(3e-17, a=a), 0.0)
+    assert (m.classification, m.stability) == ("hidden", "marginal")
+    assert m.is_unstable
+
+
+def test_mimo_hidden_and_nearly_hidden_in_rotated_coordinates() -> None:
+    # Invented 2-input, 2-output heated-enclosure zone: three coupled modes, an unstable
+    # unobservable mode at 0.8 and an unstable mode at 0.3 weakly coupled to the inputs
+    # (1e-7 of ||B||). Then a random orthogonal change of coordinates Q (the couplings are
+    # invariant under it: ||C v||, ||w^H B|| and the norms are unchanged).
+    rng = np.random.default_rng(11)
+    a = np.diag([-1.0, -2.5, -4.0, 0.8, 0.3])
+    b = np.vstack([rng.standard_normal((3, 2)), rng.standard_normal((1, 2)), [[1e-7, 0.0]]])
+    c = np.hstack([rng.standard_normal((2, 3)), [[0.0], [0.0]], rng.standard_normal((2, 1))])
+    q, _ = np.linalg.qr(rng.standard_normal((5, 5)))
+    r = Realization.from_arrays(q @ a @ q.T, q @ b, c @ q.T, np.zeros((2, 2)))
+    hidden, weak = mode_at(r, 0.8), mode_at(r, 0.3)
+    assert (hidden.classification, hidden.kind, hidden.stability) == ("hidden", "unobservable", "unstable")
+    assert (weak.classification, weak.kind, weak.stability) == ("nearly_hidden", "uncontrollable", "unstable")
+    # closed form: the left eigenvector of 0.3 is q e5, so ||w^H (Q B)|| = ||B[4]|| = 1e-7
+    assert weak.inputs == pytest.approx(1e-7 / np.linalg.norm(b, 2), rel=1e-6)
+    assert hidden.outputs < 1e-14  # closed form 0, rounding of Q only
+    assert minimal_realization(r).order == 4
+    assert slycot_minimal_order(r) == 4  # independent: slycot TB01PD
+    # independent: mpmath; the observability matrix of the stored doubles has one
+    # relative singular value below 1e-10 (the 0.8 mode), the others above
+    rel = mp_relative_singular_values(observability_matrix(r))
+    assert rel[-1] < 1e-10 < rel[-2]
+
+
+@pytest.mark.parametrize("k", [-40, -20, -8, 0, 8, 20, 40])
+def test_state_scaling_of_the_hidden_state_does_not_change_the_decision(k: int) -> None:
+    # An exact (power of 2) rescaling of the third state by 2^k multiplies the C entry
+    # by 2^k and the B entry by 2^-k: for k = 40 the C entry is 3.3e-5 and the input
+    # coupling 1.8e-13 -- the mode is then numerically uncontrollable instead of
+    # unobservable, but hidden all the same. The joint coupling (their product) is
+    # invariant (closed form: 3e-17 * 0.2 / (||B|| ||C||) up to the norms).
+    r = example(3e-17)
+    t = np.diag([1.0, 1.0, 2.0**k])
+    # (T^-1 A T, T^-1 B, C T); A is unchanged because the third state is decoupled in A
+    rs = Realization.from_arrays(np.asarray(r.a), np.linalg.solve(t, r.b), np.asarray(r.c) @ t, [[0.0]])
+    mr = minimal_realization(rs)
+    assert mr.order == 2
+    m = mode_at(rs, 0.5)
+    assert m.classification == "hidden" and m.stability == "unstable"
+    assert m.joint < 1e-12
+
+
+def test_scaling_ignores_rounding_level_entries_only() -> None:
+    # the plain balancing blows the 3e-17 entry up by 2^26 = 6.7e7 (the issue's "about
+    # 7e7"); with the rank tolerance as floor it leaves that state alone
+    r = example(3e-17)
+    assert state_scaling(r)[2] == 2.0**26
+    assert state_scaling(r, floor=1e-10)[2] == 1.0
+    # a genuine coupling of 1e-6 is above the floor and is balanced as before
+    r6 = example(1e-6)
+    assert state_scaling(r6, floor=1e-10)[2] == state_scaling(r6)[2] == 512.0
+
+
+def test_balanced_form_inspects_like_its_source() -> None:
+    from audit.forms import balanced_form
+    from audit.inspection import inspect_model
+
+    r = example(3e-17)
+    conv = balanced_form(r)
+    src, out = inspect_model(r), inspect_model(conv.realization)
+    assert src.status == out.status == "problem"
+    for key in ("minimal_order", "internal_stability", "input_output_stability"):
+        assert src.properties[key] == out.properties[key]
+    assert [h["location"][0] for h in out.properties["hidden_modes"]] == pytest.approx([0.5], rel=1e-12)
