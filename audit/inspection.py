@@ -137,6 +137,9 @@ def _inspect_model(r: Realization, *, claimed_form: str | None, rank_tol: float 
                 "certified": bool(getattr(pk, "certified", False))}
     except NumericalTroubleError as exc:
         peak = {"value": None, "note": str(exc)}
+    except np.linalg.LinAlgError:  # norms.peak_gain evaluates at a pole exactly on the boundary
+        peak = {"value": None, "note": "not computed: the frequency response is unbounded "
+                "(a pole lies on the stability boundary)"}
     cond = _conditioning(r)
     problems: list[str] = []
     notes: list[str] = []

@@ -331,3 +331,124 @@ def test_empty_acceptance_reason_is_a_usage_error(tmp_path, capsys) -> None:
         main(["compare", ref, ref, "--accept-hidden-instability", "  "])
     assert info.value.code == 2
     assert "expected a non-empty reason" in capsys.readouterr().err
+
+
+# ------------------------------------------------- consistency of the written forms
+from hypothesis import assume, given  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from audit.errors import InvalidModelError, NumericalTroubleError  # noqa: E402
+from audit.forms import FORMS  # noqa: E402
+from audit.strategies import lti_systems  # noqa: E402
+
+#: coupling of the added mode on its weak side, relative to ||B|| or ||C||
+EXTRA_COUPLING = {"exact": 0.0, "rounding": 1e-16, "weak": 1e-7, "coupled": 1.0}
+
+
+@st.composite
+def models_with_an_added_mode(draw: st.DrawFn) -> Realization:
+    """A random model (with or without a stable hidden mode of audit.strategies) plus one
+    unstable or marginal mode, exactly decoupled, decoupled to rounding level, weakly
+    coupled (1e-7) or coupled on one side, in random orthogonal coordinates."""
+    base = draw(lti_systems(min_order=1, max_order=4, max_spread_decades=2.0, hidden=True,
+                            coordinate_condition=(1.0, 10.0)), label="base")
+    stability = draw(st.sampled_from(["unstable", "marginal"]), label="stability")
+    coupling = draw(st.sampled_from(sorted(EXTRA_COUPLING)), label="coupling")
+    side = draw(st.sampled_from(["unobservable", "uncontrollable"]), label="side")
+    seed = draw(st.integers(0, 2**32 - 1), label="seed")
+    rng = np.random.default_rng(seed)
+    factor = draw(st.floats(0.5, 2.0), label="factor")
+    if base.is_discrete:
+        lam = 1.0 if stability == "marginal" else 1.0 + 0.3 * factor
+    else:
+        lam = 0.0 if stability == "marginal" else 0.4 * factor
+    n, m, p = base.order, base.n_inputs, base.n_outputs
+    a = np.zeros((n + 1, n + 1))
+    a[:n, :n] = base.a
+    a[n, n] = lam
+    b_row = rng.standard_normal((1, m)) * max(float(np.linalg.norm(base.b)), 1e-3)
+    c_col = rng.standard_normal((p, 1)) * max(float(np.linalg.norm(base.c)), 1e-3)
+    level = EXTRA_COUPLING[coupling]
+    if side == "unobservable":
+        c_col = c_col / np.linalg.norm(c_col) * level * max(float(np.linalg.norm(base.c)), 1e-3)
+    else:
+        b_row = b_row / np.linalg.norm(b_row) * level * max(float(np.linalg.norm(base.b)), 1e-3)
+    b = np.vstack([base.b, b_row])
+    c = np.hstack([base.c, c_col])
+    q, _ = np.linalg.qr(rng.standard_normal((n + 1, n + 1)))
+    return Realization.from_arrays(q @ a @ q.T, q @ b, c @ q.T, base.d, base.sample_period)
+
+
+def _inspected(r: Realization) -> dict:
+    from audit.inspection import inspect_model
+
+    insp = inspect_model(r)
+    p = insp.properties
+    joints = [(m.value, m.joint) for m in mode_couplings(r).modes]  # every mode, coupled too
+    return {"minimal_order": p["minimal_order"], "internal": p["internal_stability"],
+            "io": p["input_output_stability"], "hidden": p["hidden_modes"],
+            "nearly": p["nearly_hidden_modes"], "joints": joints,
+            "clear": insp.evidence[0].outcome != "unclear"}
+
+
+def _same_locations(xs: list, ys: list) -> bool:
+    from scipy.optimize import linear_sum_assignment
+
+    if len(xs) != len(ys):
+        return False
+    if not xs:
+        return True
+    zx = np.array([complex(*h["location"]) for h in xs])
+    zy = np.array([complex(*h["location"]) for h in ys])
+    cost = np.abs(zx[:, None] - zy[None, :])
+    rows, cols = linear_sum_assignment(cost)
+    # hidden eigenvalues: accurate to ~sqrt(eps) for a double one (common practice)
+    return bool(np.all(cost[rows, cols] <= 1e-6 * np.maximum(1.0, np.abs(zx[rows]))))
+
+
+def _near(z: complex, modes: list) -> bool:
+    return any(_same_locations([{"location": [z.real, z.imag]}], [h]) for h in modes)
+
+
+@pytest.mark.parametrize("form", sorted(FORMS))
+@given(r=models_with_an_added_mode())
+def test_every_written_form_inspects_like_its_source(form: str, r: Realization) -> None:
+    """Hidden modes, stability and minimal order of every form equal its source's.
+
+    Bounded, not exact: a change of coordinates T moves a mode's joint coupling by at most
+    a factor cond(T)^2 (audit.structure.ModeCoupling), so a mode whose joint coupling in
+    the source lies within that factor (times 10) of a threshold may be classified on
+    either side of it in the form; such modes are left out of the comparison. For a
+    reduction (the balanced form drops non-minimal stable states) only unstable and
+    marginal hidden modes must survive.
+    """
+    try:
+        conv = FORMS[form](r)
+    except (NumericalTroubleError, InvalidModelError):
+        assume(False)  # an honest refusal (e.g. a companion form of an uncontrollable model)
+        return
+    src = _inspected(r)
+    assume(src["clear"])  # an unclear rank decision may legitimately go either way
+    out = _inspected(conv.realization)
+    cond = conv.transform_condition or max(conv.eigenvalue_condition_numbers, default=1.0)
+    k = 10.0 * max(1.0, cond) ** 2
+    rank_tol = 1e-10  # the staircase's default relative tolerance for these orders
+    near_hidden_line = [z for z, j in src["joints"] if rank_tol / k <= j <= rank_tol * k]
+    near_weak_line = [z for z, j in src["joints"] if NEARLY_HIDDEN_LEVEL / k <= j <= NEARLY_HIDDEN_LEVEL * k]
+    assert out["internal"] == src["internal"]
+    reduction = conv.transform is None
+    if not near_hidden_line:
+        assert out["io"] == src["io"]
+        assert out["minimal_order"] == src["minimal_order"]
+        keep = (lambda h: h["unstable"]) if reduction else (lambda h: True)
+        assert _same_locations([h for h in out["hidden"] if keep(h)],
+                               [h for h in src["hidden"] if keep(h)])
+    # the gate's view: unstable / marginal hidden or nearly hidden modes
+    flagged_src = [h for h in src["hidden"] + src["nearly"] if h["unstable"]]
+    flagged_out = [h for h in out["hidden"] + out["nearly"] if h["unstable"]]
+    for h in flagged_src:
+        if not _near(complex(*h["location"]), [{"location": [z.real, z.imag]} for z in near_weak_line]):
+            assert _near(complex(*h["location"]), flagged_out), (h, flagged_out)
+    for h in flagged_out:
+        if not _near(complex(*h["location"]), [{"location": [z.real, z.imag]} for z in near_weak_line]):
+            assert _near(complex(*h["location"]), flagged_src), (h, flagged_src)
