@@ -18,6 +18,21 @@ Methods implemented
   staircase (or, for the sum, a principal-angle SVD), and an orthonormal basis adapted
   to the chain ``V_c ∩ V_uo ⊂ V_c ⊂ V_c + V_uo ⊂ R^n`` is used (R. E. Kalman,
   "Mathematical description of linear dynamical systems", SIAM J. Control 1 (1963)).
+* **Mode coupling** (:func:`mode_couplings`): for every eigenvalue of A, its coupling to
+  the inputs and to the outputs, relative to the model's size -- eigenvector couplings
+  ``||w^H B|| / ||B||`` and ``||C v|| / ||C||`` (unit eigenvectors) for simple,
+  well-conditioned eigenvalues, otherwise the quantitative PBH test (V. M. Popov,
+  V. Belevitch, M. L. J. Hautus): the smallest singular values of ``[A - lambda I, B]`` and
+  ``[A - lambda I; C]`` relative to ``||[A, B]||`` / ``||[A; C]||``, which is R. Eising's
+  distance to uncontrollability ("Between controllable and uncontrollable", Systems &
+  Control Letters 4 (1984)) restricted to that eigenvalue. A mode is *hidden* when the
+  staircase removes it, *nearly hidden* when it is kept but its joint coupling (input
+  times output coupling) is at most ``NEARLY_HIDDEN_LEVEL``, *coupled* otherwise.
+* **State scaling that rounding cannot steer**: besides the plain power-of-2 balancing
+  of :func:`state_scaling`, a second one that ignores entries below the rank tolerance;
+  when the staircases after the two disagree about the minimal order, the joint
+  couplings (which a diagonal scaling moves only through the normalisation) decide
+  which one is used; see ``_prepare``.
 * **Invariant / transmission zeros**: the reduced regular pencil of
   A. Emami-Naeini and P. Van Dooren, "Computation of zeros of linear multivariable
   systems", Automatica 18 (1982) 415-430, via slycot ``ab08nd`` (SLICOT AB08ND), then
