@@ -21,6 +21,7 @@ This module only arranges results of :mod:`audit.structure`; it never prints.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any, Literal
 
@@ -60,6 +61,7 @@ class ModelModes:
     thresholds: dict[str, float]
     minimal_order: int
     decisions_clear: bool
+    sample_period: float | None = None
 
     def as_dict(self) -> dict[str, Any]:
         return {"modes": [dict(m) for m in self.modes], "thresholds": dict(self.thresholds),
@@ -91,7 +93,27 @@ def model_modes(r: Realization, *, label: str | None = None,
     d = mc.as_dict()
     return ModelModes(label=label or r.name or "model", modes=tuple(d["modes"]),
                       thresholds=d["thresholds"], minimal_order=mc.minimal_order,
-                      decisions_clear=mc.decisions_clear)
+                      decisions_clear=mc.decisions_clear, sample_period=r.sample_period)
+
+
+def _in_domain_of(location: list[float], source: float | None, target: float | None) -> list[float]:
+    """A mode of a model with sample period ``source`` (None: continuous) seen in the
+    domain of one with period ``target``: ``z = exp(s T)`` for a continuous mode and a
+    discrete target, ``z^(T_target / T_source)`` (principal branch) between periods,
+    ``log(z) / T`` for a discrete mode and a continuous target."""
+    import cmath
+
+    z = complex(*location)
+    if source == target:
+        return location
+    if source is None and target is not None:
+        w = cmath.exp(z * target)
+    elif source is not None and target is None:
+        w = cmath.log(z) / source if z != 0 else complex(-math.inf, 0.0)
+    else:
+        assert source is not None and target is not None
+        w = cmath.exp(cmath.log(z) * (target / source)) if z != 0 else 0j
+    return [w.real, w.imag]
 
 
 def _same_mode(a: list[float], b: list[float]) -> bool:
@@ -154,9 +176,11 @@ def hidden_mode_problems(reference: ModelModes, others: list[ModelModes], *,
     list of dict
     """
     reason = accepted_reason.strip() if accepted_reason and accepted_reason.strip() else None
-    ref_flagged = [m["location"] for m in reference.modes]
     out: list[dict[str, Any]] = []
     for k, other in enumerate(others):
+        # a reference in another time domain (compare --discretization) is mapped first
+        ref_flagged = [_in_domain_of(m["location"], reference.sample_period, other.sample_period)
+                       for m in reference.modes]
         for m in other.modes:
             if not m["unstable"]:
                 continue

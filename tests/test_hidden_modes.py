@@ -452,3 +452,19 @@ def test_every_written_form_inspects_like_its_source(form: str, r: Realization) 
     for h in flagged_out:
         if not _near(complex(*h["location"]), [{"location": [z.real, z.imag]} for z in near_weak_line]):
             assert _near(complex(*h["location"]), flagged_src), (h, flagged_src)
+
+
+def test_gate_maps_a_continuous_reference_into_the_discrete_domain() -> None:
+    # compare --discretization: the reference's hidden mode at s = 0.5 is the discrete
+    # model's hidden mode at z = exp(0.5 T) (closed form of the zero-order hold of a
+    # decoupled state); it is not new
+    from audit.internal_stability import hidden_mode_problems, model_modes
+
+    period = 0.1
+    ref = model_modes(example(0.0), label="continuous")
+    ad = [[0.5, 0.2, 0.0], [-0.2, 0.4, 0.0], [0.0, 0.0, math.exp(0.5 * period)]]
+    disc = model_modes(example(0.0, period=period, a=ad), label="discrete")
+    assert hidden_mode_problems(ref, [disc]) == []
+    fresh = model_modes(example(0.0, period=period, a=A_DISCRETE), label="discrete")  # z = 1.5
+    (p,) = hidden_mode_problems(ref, [fresh])
+    assert p["location"] == pytest.approx([1.5, 0.0], abs=1e-12)

@@ -513,7 +513,7 @@ def _internal_stability_claims(ps: ParsedSubmission, tol: Tolerances) -> list[di
     from ..internal_stability import ModelModes, hidden_mode_problems, model_modes
 
     ref = (model_modes(ps.reference, label="the reference", rank_tol=tol.rank_tol)
-           if ps.reference is not None else ModelModes("", (), {}, 0, True))
+           if ps.reference is not None else ModelModes("", (), {}, 0, True, None))
     mods = [model_modes(r, label=r.name, rank_tol=tol.rank_tol) for r in ps.models]
     problems = hidden_mode_problems(ref, mods, accepted_reason=ps.submission.accept_hidden_instability)
     return [_claim(p["model"], "internal_stability", "no new unstable or marginal hidden mode",
