@@ -149,9 +149,9 @@ def _compare(args: argparse.Namespace) -> int:
         except IncompatibleModelsError as exc:
             raise IncompatibleModelsError(f"{path}: {exc}") from None
     verdict = overall_verdict(pairs)
-    from .internal_stability import model_modes, unaccepted
+    from .internal_stability import model_modes, modes_from_comparisons, unaccepted
 
-    modes = [model_modes(m, label=m.name) for m in models]
+    modes = [modes_from_comparisons(m, pairs) or model_modes(m, label=m.name) for m in models]
     data = compare_report(models, list(args.models), pairs, options, verdict,
                           time.perf_counter() - start, signals=signals, modes=modes,
                           accepted_reason=args.accept_hidden_instability)

@@ -96,6 +96,27 @@ def model_modes(r: Realization, *, label: str | None = None,
                       decisions_clear=mc.decisions_clear, sample_period=r.sample_period)
 
 
+def modes_from_comparisons(r: Realization, pairs: list[Any]) -> ModelModes | None:
+    """The :class:`ModelModes` of ``r`` as already computed inside ``pairs``
+    (the ``minimal_order:<name>`` evidence of :func:`audit.verdict.compare_pair`, which
+    runs :func:`audit.structure.mode_couplings` on the stored model), or None when no
+    comparison analysed this very model (e.g. only a discretized copy of it)."""
+    key = f"minimal_order:{r.name}"
+    for pair in pairs:
+        for ev in getattr(pair, "evidence", ()):
+            d = ev.details
+            if ev.key != key or "nearly_hidden_modes" not in d or d.get("order") != r.order:
+                continue
+            modes = sorted(list(d["hidden_modes"]) + list(d["nearly_hidden_modes"]),
+                           key=lambda m: (m["location"][0], m["location"][1]))
+            return ModelModes(label=r.name or "model", modes=tuple(modes),
+                              thresholds=dict(d["mode_coupling_thresholds"]),
+                              minimal_order=int(d["minimal_order"]),
+                              decisions_clear=ev.outcome != "unclear",
+                              sample_period=r.sample_period)
+    return None
+
+
 def _in_domain_of(location: list[float], source: float | None, target: float | None) -> list[float]:
     """A mode of a model with sample period ``source`` (None: continuous) seen in the
     domain of one with period ``target``: ``z = exp(s T)`` for a continuous mode and a
@@ -211,6 +232,7 @@ __all__ = [
     "ModelModes",
     "hidden_mode_problems",
     "model_modes",
+    "modes_from_comparisons",
     "problem_message",
     "unaccepted",
 ]

@@ -468,3 +468,18 @@ def test_gate_maps_a_continuous_reference_into_the_discrete_domain() -> None:
     fresh = model_modes(example(0.0, period=period, a=A_DISCRETE), label="discrete")  # z = 1.5
     (p,) = hidden_mode_problems(ref, [fresh])
     assert p["location"] == pytest.approx([1.5, 0.0], abs=1e-12)
+
+
+def test_modes_reused_from_the_comparison_equal_a_fresh_computation() -> None:
+    from audit.internal_stability import model_modes, modes_from_comparisons
+    from audit.verdict import compare_pair
+
+    ref = _minimal_valve().with_name("reference")
+    vendor = example(1e-6).with_name("vendor")
+    pairs = [compare_pair(ref, vendor)]
+    for r in (ref, vendor):
+        reused, fresh = modes_from_comparisons(r, pairs), model_modes(r, label=r.name)
+        assert reused is not None
+        assert reused.modes == fresh.modes and reused.thresholds == fresh.thresholds
+        assert reused.minimal_order == fresh.minimal_order
+    assert modes_from_comparisons(example(0.0).with_name("elsewhere"), pairs) is None
