@@ -198,10 +198,11 @@ def compare_report(models: list[Any], sources: list[str], pairs: list[Any], opti
     (:func:`audit.internal_stability.hidden_mode_problems`), every one accepted with
     ``accepted_reason`` when that is given.
     """
-    from .internal_stability import hidden_mode_problems, model_modes
+    from .internal_stability import hidden_mode_problems, model_modes, modes_from_comparisons
 
     if modes is None:
-        modes = [model_modes(r, label=r.name, rank_tol=getattr(options, "rank_tol", None))
+        modes = [modes_from_comparisons(r, pairs)
+                 or model_modes(r, label=r.name, rank_tol=getattr(options, "rank_tol", None))
                  for r in models]
     problems = hidden_mode_problems(modes[0], list(modes[1:]), accepted_reason=accepted_reason)
     summary = _compare_summary(pairs, verdict)
