@@ -483,3 +483,23 @@ def test_modes_reused_from_the_comparison_equal_a_fresh_computation() -> None:
         assert reused.modes == fresh.modes and reused.thresholds == fresh.thresholds
         assert reused.minimal_order == fresh.minimal_order
     assert modes_from_comparisons(example(0.0).with_name("elsewhere"), pairs) is None
+
+
+def test_equivalence_claim_fails_on_a_new_unstable_hidden_mode_unless_accepted(tmp_path) -> None:
+    from audit.manifest import evaluate_claims, load_claims_manifest
+
+    _write(tmp_path / "reference.json", _minimal_valve(), "reference")
+    _write(tmp_path / "vendor.json", example(3e-17), "vendor")
+    claim = ('[[claim]]\nname = "valve refactor"\nmodels = ["reference.json", "vendor.json"]\n'
+             'expect = "equivalent"\n')
+    (tmp_path / "lti-audit.toml").write_text(claim)
+    (res,) = evaluate_claims(load_claims_manifest(tmp_path / "lti-audit.toml"))
+    assert res.status == "fails"
+    assert "Internal stability changed: vendor.json has an unstable hidden mode at 0.5" in res.explanation
+    (tmp_path / "lti-audit.toml").write_text(
+        claim + '\n[[accept_hidden_instability]]\nmodel = "vendor.json"\n'
+        'reason = "bench-tested with the inner loop closed"\n')
+    (res,) = evaluate_claims(load_claims_manifest(tmp_path / "lti-audit.toml"))
+    assert res.status == "holds"
+    assert "(reason: bench-tested with the inner loop closed)" in res.explanation
+    assert res.details[0]["problems"][0]["accepted"] is True
