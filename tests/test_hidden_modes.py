@@ -346,12 +346,14 @@ EXTRA_COUPLING = {"exact": 0.0, "rounding": 1e-16, "weak": 1e-7, "coupled": 1.0}
 
 
 @st.composite
-def models_with_an_added_mode(draw: st.DrawFn) -> Realization:
+def models_with_an_added_mode(draw: st.DrawFn, *, coordinate_condition: tuple[float, float] = (1.0, 10.0),
+                              mix_condition: float = 1.0) -> Realization:
     """A random model (with or without a stable hidden mode of audit.strategies) plus one
     unstable or marginal mode, exactly decoupled, decoupled to rounding level, weakly
-    coupled (1e-7) or coupled on one side, in random orthogonal coordinates."""
+    coupled (1e-7) or coupled on one side, in random coordinates (orthogonal when
+    ``mix_condition`` is 1, else of that condition number)."""
     base = draw(lti_systems(min_order=1, max_order=4, max_spread_decades=2.0, hidden=True,
-                            coordinate_condition=(1.0, 10.0)), label="base")
+                            coordinate_condition=coordinate_condition), label="base")
     stability = draw(st.sampled_from(["unstable", "marginal"]), label="stability")
     coupling = draw(st.sampled_from(sorted(EXTRA_COUPLING)), label="coupling")
     side = draw(st.sampled_from(["unobservable", "uncontrollable"]), label="side")
@@ -375,8 +377,14 @@ def models_with_an_added_mode(draw: st.DrawFn) -> Realization:
         b_row = b_row / np.linalg.norm(b_row) * level * max(float(np.linalg.norm(base.b)), 1e-3)
     b = np.vstack([base.b, b_row])
     c = np.hstack([base.c, c_col])
-    q, _ = np.linalg.qr(rng.standard_normal((n + 1, n + 1)))
-    return Realization.from_arrays(q @ a @ q.T, q @ b, c @ q.T, base.d, base.sample_period)
+    if mix_condition == 1.0:
+        q, _ = np.linalg.qr(rng.standard_normal((n + 1, n + 1)))
+        return Realization.from_arrays(q @ a @ q.T, q @ b, c @ q.T, base.d, base.sample_period)
+    from audit.strategies import random_coordinates
+
+    t = random_coordinates(n + 1, mix_condition, rng)
+    return Realization.from_arrays(t @ np.linalg.solve(t.T, a.T).T, t @ b, np.linalg.solve(t.T, c.T).T,
+                                   base.d, base.sample_period)
 
 
 def _inspected(r: Realization) -> dict:
@@ -503,3 +511,10 @@ def test_equivalence_claim_fails_on_a_new_unstable_hidden_mode_unless_accepted(t
     assert res.status == "holds"
     assert "(reason: bench-tested with the inner loop closed)" in res.explanation
     assert res.details[0]["problems"][0]["accepted"] is True
+
+
+@pytest.mark.nightly
+@pytest.mark.parametrize("form", sorted(FORMS))
+@given(r=models_with_an_added_mode(coordinate_condition=(1.0, 1e3), mix_condition=100.0))
+def test_nightly_written_forms_in_ill_conditioned_coordinates(form: str, r: Realization) -> None:
+    test_every_written_form_inspects_like_its_source.hypothesis.inner_test(form, r)
