@@ -30,9 +30,11 @@ Methods implemented
   times output coupling) is at most ``NEARLY_HIDDEN_LEVEL``, *coupled* otherwise.
 * **State scaling that rounding cannot steer**: besides the plain power-of-2 balancing
   of :func:`state_scaling`, a second one that ignores entries below the rank tolerance;
-  when the staircases after the two disagree about the minimal order, the joint
-  couplings (which a diagonal scaling moves only through the normalisation) decide
-  which one is used; see ``_prepare``.
+  when the two differ or a decision is unclear, the number of modes whose joint coupling
+  (which a diagonal scaling moves only through the normalisation) is at rounding level
+  decides which scaling -- and, failing both, which slightly looser tolerance (at most
+  100 times, below ``DOUBT_CEILING``; the decisions are then reported unclear) -- is
+  used; see ``_prepare``.
 * **Invariant / transmission zeros**: the reduced regular pencil of
   A. Emami-Naeini and P. Van Dooren, "Computation of zeros of linear multivariable
   systems", Automatica 18 (1982) 415-430, via slycot ``ab08nd`` (SLICOT AB08ND), then
@@ -623,42 +625,65 @@ def _scaled(r: Realization, d: FloatArray) -> Realization:
     return r.with_matrices(a, np.asarray(r.b) / d[:, None], np.asarray(r.c) * d[None, :])
 
 
-def _prepare(r: Realization, balance: bool, rtol: float) -> tuple[Realization, FloatArray, bool]:
-    """(realization to work on, scaling d, whether d differs from all ones).
+#: looser rank tolerances (factors of the given one, kept below ``DOUBT_CEILING``) tried
+#: when the staircase and the joint mode couplings disagree about how many modes are
+#: hidden (see :func:`_prepare`).
+LOOSER_TOLERANCE_FACTORS = (10.0, 100.0)
+
+
+def _prepare(r: Realization, balance: bool,
+             rtol: float) -> tuple[Realization, FloatArray, bool, float]:
+    """(realization to work on, scaling d, whether d differs from all ones, tolerance).
 
     Two candidate scalings: the plain balancing ``d_all`` of :func:`state_scaling` and
-    the one that ignores entries below the rank tolerance ``d_floor``. They differ only
-    when some entry lies at rounding level. When the staircases in the two coordinate
-    systems remove different numbers of modes, the mode couplings decide
-    (:func:`_scaling_by_joint_coupling`): a tiny entry that is the only link of a mode
-    (issue 11: ``C = [..., 3e-17]``) leaves the mode's joint coupling -- the product of
-    its input and output couplings, which a diagonal state scaling leaves unchanged up
-    to the normalisation -- at rounding level, while a state rescaled by a unit change of
-    1e9 keeps a joint coupling of order one.
+    the one that ignores entries below the rank tolerance ``d_floor``; they differ only
+    when some entry lies at rounding level. When they differ, or when the staircase after
+    ``d_all`` makes an unclear decision, the number of modes whose *joint coupling* (the
+    product of input and output coupling, measured after ``d_all``; a diagonal state
+    scaling moves one factor up and the other down) is at most ``rtol`` is the arbiter:
+    the first of (d_all, rtol), (d_floor, rtol), then both with the looser tolerances
+    ``LOOSER_TOLERANCE_FACTORS * rtol``, whose staircase removes exactly that many modes
+    is used. A tiny entry that is the only link of a mode (issue 11: ``C = [..., 3e-17]``)
+    leaves the mode's joint coupling at rounding level; a state rescaled by a unit change
+    of 1e9 keeps a joint coupling of order one. When none agrees, ``(d_all, rtol)`` is
+    kept unless ``d_floor`` comes closer. A tolerance other than ``rtol`` makes the
+    caller's decisions unclear.
     """
     if not balance or r.order == 0:
-        return r, np.ones(r.order), False
+        return r, np.ones(r.order), False, rtol
     d_all = state_scaling(r)
     d_floor = state_scaling(r, floor=rtol)
-    d = d_all
-    if np.any(d_all != d_floor):  # exact: powers of 2 set by us
-        d = _scaling_by_joint_coupling(r, d_all, d_floor, rtol)
+    floors_differ = bool(np.any(d_all != d_floor))  # exact: powers of 2 set by us
+    removed: dict[tuple[int, float], int] = {}
+
+    def removed_by(which: int, t: float) -> int:
+        if (which, t) not in removed:
+            d = d_all if which == 0 else d_floor
+            removed[(which, t)] = r.order - _minimal_parts(_scaled(r, d), t)[0].order
+        return removed[(which, t)]
+
+    choice: tuple[int, float] = (0, rtol)
+    if floors_differ or not _clear_at(r, d_all, rtol):
+        sides = _mode_sides(_scaled(r, d_all))
+        weak = int(np.count_nonzero(sides.inputs * sides.outputs <= rtol))
+        whiches = (0, 1) if floors_differ else (0,)
+        tries = [(w, rtol) for w in whiches] + [
+            (w, f * rtol) for f in LOOSER_TOLERANCE_FACTORS if f * rtol < DOUBT_CEILING
+            for w in whiches]
+        for w, t in tries:
+            if removed_by(w, t) == weak:
+                choice = (w, t)
+                break
+        else:
+            if floors_differ and abs(removed_by(1, rtol) - weak) < abs(removed_by(0, rtol) - weak):
+                choice = (1, rtol)
+    d = d_all if choice[0] == 0 else d_floor
     nontrivial = bool(np.any(d != 1.0))  # exact: d holds powers of 2 set by us
-    return (_scaled(r, d) if nontrivial else r), d, nontrivial
+    return (_scaled(r, d) if nontrivial else r), d, nontrivial, choice[1]
 
 
-def _scaling_by_joint_coupling(r: Realization, d_all: FloatArray, d_floor: FloatArray,
-                               rtol: float) -> FloatArray:
-    """The scaling whose staircase removes as many modes as have a joint coupling at or
-    below ``rtol`` (measured in the plainly balanced coordinates); ``d_all`` on a tie."""
-    order_all = _minimal_parts(_scaled(r, d_all), rtol)[0].order
-    order_floor = _minimal_parts(_scaled(r, d_floor), rtol)[0].order
-    if order_all == order_floor:
-        return d_all
-    sides = _mode_sides(_scaled(r, d_all))
-    weak = int(np.count_nonzero(sides.inputs * sides.outputs <= rtol))
-    removed_all, removed_floor = r.order - order_all, r.order - order_floor
-    return d_floor if abs(removed_floor - weak) < abs(removed_all - weak) else d_all
+def _clear_at(r: Realization, d: FloatArray, rtol: float) -> bool:
+    return all(dec.clear for dec in _minimal_parts(_scaled(r, d), rtol)[3])
 
 
 # ------------------------------------------------------------ minimal realization
@@ -812,9 +837,9 @@ def _minimal_realization(
     """Implementation of :func:`minimal_realization`."""
     r = _check_realization(r)
     rtol = _relative_tolerance(tol, r.order)
-    work, d, scaled = _prepare(r, balance, rtol)
-    minimal, unc, uno, decisions, discarded = _minimal_parts(work, rtol)
-    unscaled_order = _minimal_parts(r, rtol)[0].order if scaled else minimal.order
+    work, d, scaled, used_tol = _prepare(r, balance, rtol)
+    minimal, unc, uno, decisions, discarded = _minimal_parts(work, used_tol)
+    unscaled_order = _minimal_parts(r, rtol)[0].order if scaled or used_tol != rtol else minimal.order
     if minimal.order == r.order:
         # nothing to remove: keep the user's coordinates exactly (any transformation,
         # even an orthogonal one, perturbs near-defective poles by ~sqrt(eps))
@@ -828,8 +853,9 @@ def _minimal_realization(
         decisions=decisions,
         decisions_clear=bool(
             all(dec.clear for dec in decisions) and unscaled_order == minimal.order
+            and used_tol == rtol
         ),
-        tolerance=rtol,
+        tolerance=used_tol,
         discarded_norm=discarded,
         state_scaling=d,
         unscaled_order=unscaled_order,
@@ -1051,9 +1077,10 @@ def kalman_decomposition(
     """
     r = _check_realization(r)
     rtol = _relative_tolerance(tol, r.order)
-    work, d, scaled = _prepare(r, balance, rtol)
-    parts = _kalman_parts(work, rtol)
-    unscaled_sizes = _kalman_parts(r, rtol)["block_sizes"] if scaled else parts["block_sizes"]
+    work, d, scaled, used_tol = _prepare(r, balance, rtol)
+    parts = _kalman_parts(work, used_tol)
+    unscaled_sizes = (_kalman_parts(r, rtol)["block_sizes"] if scaled or used_tol != rtol
+                      else parts["block_sizes"])
     return KalmanDecomposition(
         realization=parts["realization"],
         transformation=parts["transformation"],
@@ -1061,10 +1088,11 @@ def kalman_decomposition(
         block_sizes=parts["block_sizes"],
         eigenvalues=parts["eigenvalues"],
         decisions=parts["decisions"],
-        decisions_clear=bool(parts["clear"] and unscaled_sizes == parts["block_sizes"]),
+        decisions_clear=bool(parts["clear"] and unscaled_sizes == parts["block_sizes"]
+                             and used_tol == rtol),
         subspace_residual=parts["residual"],
         unscaled_block_sizes=unscaled_sizes,
-        tolerance=rtol,
+        tolerance=used_tol,
         discarded_norm=parts["discarded"],
     )
 
@@ -1743,6 +1771,7 @@ __all__ = [
     "HiddenMode",
     "HiddenModes",
     "KalmanDecomposition",
+    "LOOSER_TOLERANCE_FACTORS",
     "MinimalRealization",
     "ModeCoupling",
     "ModeCouplings",
