@@ -113,6 +113,10 @@ class _Shared:
     min1: Any
     min2: Any
     transform: Any = None  # T between the two realizations, when recovered
+    # absolute construction error of each realization against its stored data (sup over
+    # the grid; 0 for state space, whose matrices are the stored data)
+    construction1: float = 0.0
+    construction2: float = 0.0
 
 
 def _sigma_max(g: NDArray[np.complex128]) -> NDArray[np.float64]:
@@ -135,15 +139,70 @@ def _shared(r1: Realization, r2: Realization, min1: Any, min2: Any) -> _Shared:
         except NumericalTroubleError:
             z = np.zeros(0)
         extra.extend(_pole_frequencies(np.asarray(z), r1.sample_period))
+    for r in (r1, r2):  # the poles of the stored data, too (a converted copy may miss some)
+        if r.stored is not None:
+            extra.extend(_pole_frequencies(_finite(r.stored.poles()), r1.sample_period))
     grid = adaptive_frequency_grid([s1, s2, r1, r2], extra=tuple(extra))
-    pts = frequency_to_point(grid, s1)
-    g1, err1 = evaluate_with_error_estimate(s1, pts)
-    g2, err2 = evaluate_with_error_estimate(s2, pts)
+    g1, err1, c1 = _evaluate_stored(r1, s1, contour, grid)
+    g2, err2, c2 = _evaluate_stored(r2, s2, contour, grid)
     peak1 = peak_gain(s1)
     peak2 = peak_gain(s2)
     grid_peak = float(max(_sigma_max(g1).max(initial=0.0), _sigma_max(g2).max(initial=0.0)))
-    scale = max(_gain_or_zero(peak1.value), _gain_or_zero(peak2.value), grid_peak)
-    return _Shared(r1, r2, contour, s1, s2, grid, g1, g2, err1, err2, peak1, peak2, scale, min1, min2)
+    scale = max(_peak_as_stored(r1, s1, contour, peak1), _peak_as_stored(r2, s2, contour, peak2),
+                grid_peak)
+    return _Shared(r1, r2, contour, s1, s2, grid, g1, g2, err1, err2, peak1, peak2, scale, min1, min2,
+                   construction1=c1, construction2=c2)
+
+
+def _finite(points: NDArray[np.complexfloating]) -> NDArray[np.complex128]:
+    pts = np.asarray(points, dtype=complex)
+    return pts[np.isfinite(pts)]
+
+
+def contour_points(contour: Contour, omega: NDArray[np.float64], sample_period: float | None
+                   ) -> NDArray[np.complex128]:
+    """The points λ of the (possibly shifted) comparison contour at frequencies ω:
+    ``σ + jω`` in continuous time, ``ρ exp(jωT)`` in discrete time."""
+    w = np.asarray(omega, dtype=float)
+    if sample_period is None:
+        return (contour.shift if contour.shifted else 0.0) + 1j * w
+    z = np.exp(1j * w * sample_period)
+    return z * contour.shift if contour.shifted else z
+
+
+def _evaluate_stored(r: Realization, s: Realization, contour: Contour, omega: NDArray[np.float64]
+                     ) -> tuple[NDArray[np.complex128], NDArray[np.float64], float]:
+    """G on the contour from the STORED representation, with its error, and the measured
+    construction error of the realization (0 for state space).
+
+    State space: the matrices are the stored data; evaluated by
+    :func:`evaluate_with_error_estimate`. Transfer function / zero-pole-gain: the stored
+    coefficients or factors, with a rounding-error bound
+    (:mod:`audit.stored_evaluation`); the realization is evaluated as well and the largest
+    discrepancy is its construction error (reported, and carried into the decisive
+    error estimate where the realization located the peak).
+    """
+    pts = frequency_to_point(omega, s)
+    realized, err = evaluate_with_error_estimate(s, pts)
+    if r.stored is None:
+        return realized, err, 0.0
+    values, bound = r.stored.evaluate(contour_points(contour, omega, r.sample_period))
+    ok = np.isfinite(bound) & np.isfinite(err)
+    gap = _sigma_max(realized - values)
+    construction = float(np.max(gap[ok] - bound[ok] - err[ok], initial=0.0))
+    return values, bound, max(construction, 0.0)
+
+
+def _peak_as_stored(r: Realization, s: Realization, contour: Contour, peak: Any) -> float:
+    """The peak gain located on the realization, re-measured from the stored data."""
+    value = _gain_or_zero(peak.value)
+    if r.stored is None:
+        return value
+    f = float(getattr(peak, "frequency", np.nan))
+    if not np.isfinite(f) or f < 0:  # the high-frequency limit: the feedthrough
+        return float(np.linalg.norm(r.d, 2)) if r.d.size else 0.0
+    vals, bound = r.stored.evaluate(contour_points(contour, np.array([f]), r.sample_period))
+    return float(_sigma_max(vals)[0]) if np.isfinite(bound[0]) else 0.0
 
 
 ESTIMATE_SAFETY = 10.0
@@ -229,12 +288,18 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
     diffs = _sigma_max(sh.g1 - sh.g2)
     errs = sh.err1 + sh.err2
     pf = float(peak_e.frequency)
-    if np.isfinite(pf) and pf >= 0.0:
-        pts = frequency_to_point(np.array([pf]), sh.s1)
+    stored = sh.r1.stored is not None or sh.r2.stored is not None
+    extra = [pf] if np.isfinite(pf) and pf >= 0.0 else []
+    if stored:
+        # the search ran on converted copies: also refine around the largest local maxima
+        # of the difference of the STORED models on the grid
+        extra += _refinement_frequencies(freqs, diffs)
+    if extra:
         try:
-            g1p, e1p = evaluate_with_error_estimate(sh.s1, pts)
-            g2p, e2p = evaluate_with_error_estimate(sh.s2, pts)
-            freqs = np.append(freqs, pf)
+            ex = np.array(extra)
+            g1p, e1p, _ = _evaluate_stored(sh.r1, sh.s1, sh.contour, ex)
+            g2p, e2p, _ = _evaluate_stored(sh.r2, sh.s2, sh.contour, ex)
+            freqs = np.append(freqs, ex)
             diffs = np.append(diffs, _sigma_max(g1p - g2p))
             errs = np.append(errs, e1p + e2p)
         except NumericalTroubleError:
@@ -266,9 +331,11 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
             "frequency_from_search": pf,
         },
         "grid_points": int(sh.grid.size),
+        "points_evaluated": int(freqs.size),
+        "evaluated_from": [_source(sh.r1), _source(sh.r2)],
+        "construction_error_of_realizations": [sh.construction1, sh.construction2],
         "estimated_rounding_error": err_abs,
-        "error_estimate_method": "discrepancy of primal and dual Hessenberg evaluations "
-        f"x {ESTIMATE_SAFETY:g}",
+        "error_estimate_method": _error_method(sh),
         "first_order_error_bound_at_peak": _first_order_bound(sh, peak_freq),
     }
     if scale <= 0.0:
@@ -315,6 +382,50 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
         summary=summary,
         details=details,
     )
+
+
+def _source(r: Realization) -> str:
+    return "state-space matrices as stored" if r.stored is None else r.stored.describe()
+
+
+def _error_method(sh: _Shared) -> str:
+    parts = []
+    if sh.r1.stored is None or sh.r2.stored is None:
+        parts.append("state space: discrepancy of primal and dual Hessenberg evaluations "
+                     f"x {ESTIMATE_SAFETY:g}")
+    if sh.r1.stored is not None or sh.r2.stored is not None:
+        parts.append("transfer function / zero-pole-gain: a-priori rounding bound of Horner's "
+                     "rule or of the factor product on the stored data (Higham, Accuracy and "
+                     "Stability of Numerical Algorithms, 2nd ed., section 5.1); the peak search "
+                     "on the realization is backed by its measured construction error")
+    return "; ".join(parts)
+
+
+REFINE_MAXIMA = 4
+"""Local maxima of the stored difference on the grid that are refined (each by
+:data:`REFINE_POINTS` points between its neighbours) when a model is evaluated from stored
+coefficients or factors."""
+REFINE_POINTS = 16
+
+
+def _refinement_frequencies(freqs: NDArray[np.float64], diffs: NDArray[np.float64]) -> list[float]:
+    order = np.argsort(freqs)
+    f, d = freqs[order], diffs[order]
+    finite = np.isfinite(f) & np.isfinite(d)
+    f, d = f[finite], d[finite]
+    if f.size < 3:
+        return []
+    is_max = np.r_[d[0] >= d[1], (d[1:-1] >= d[:-2]) & (d[1:-1] >= d[2:]), d[-1] >= d[-2]]
+    idx = np.flatnonzero(is_max)
+    idx = idx[np.argsort(-d[idx])][:REFINE_MAXIMA]
+    out: list[float] = []
+    for k in idx:
+        lo, hi = f[max(k - 1, 0)], f[min(k + 1, f.size - 1)]
+        if lo > 0 and hi > lo:
+            out.extend(np.geomspace(lo, hi, REFINE_POINTS + 2)[1:-1].tolist())
+        elif hi > lo:
+            out.extend(np.linspace(lo, hi, REFINE_POINTS + 2)[1:-1].tolist())
+    return out
 
 
 def _first_order_bound(sh: _Shared, omega: float) -> float | None:
