@@ -94,7 +94,12 @@ def _transfer_at(flint, r: Realization, lam):  # type: ignore[no-untyped-def]
                 v = v + lam
             entries.append(v)
     pencil = flint.acb_mat(n, n, entries)
-    x = pencil.solve(_acb_matrix(flint, r.b))
+    # Gaussian elimination in ball arithmetic (rigorous, and about 3x faster than the
+    # default preconditioned solve at 256 bits for n = 50)
+    try:
+        x = pencil.solve(_acb_matrix(flint, r.b), algorithm="lu")
+    except TypeError:  # pragma: no cover - older python-flint without the keyword
+        x = pencil.solve(_acb_matrix(flint, r.b))
     return _acb_matrix(flint, r.c) * x + d
 
 
