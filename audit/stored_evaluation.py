@@ -346,6 +346,23 @@ def improper_excess(num: FloatArray, den: FloatArray) -> tuple[int, float]:
     return excess, rel
 
 
+def improper_effect(stored: StoredTransferFunction, i: int, j: int, points: ComplexArray) -> float:
+    """Largest ``|excess(λ) / den(λ)|`` over ``points`` for channel (i, j): the part of the
+    stored numerator beyond the denominator degree, evaluated on the stored denominator."""
+    num = np.asarray(stored.numerator[i][j], dtype=float)
+    den = np.asarray(stored.denominator[i][j], dtype=float)
+    excess, _ = improper_excess(num, den)
+    if excess <= 0:
+        return 0.0
+    nz = np.flatnonzero(num)
+    num = num[nz[0]:]
+    part = num.copy()
+    part[excess:] = 0.0
+    vals, bound = rational_with_bound(part, den, np.asarray(points, dtype=complex))
+    ok = np.isfinite(bound)
+    return float(np.max(np.abs(vals[ok]) + bound[ok], initial=0.0))
+
+
 def is_rounding_improper(num: FloatArray, den: FloatArray, rtol: float = IMPROPER_ROUNDING_RTOL) -> bool:
     excess, rel = improper_excess(num, den)
     return excess > 0 and rel <= rtol

@@ -1111,6 +1111,32 @@ def _warnings(sh: _Shared, ev1: Evidence, ev2: Evidence, label1: str, label2: st
                        "its hidden-mode count is uncertain")
     if sh.contour.shifted:
         out.append(f"compared on the {sh.contour.describe()}")
+    for r, label in ((sh.r1, label1), (sh.r2, label2)):
+        out.extend(_rounding_improper_warnings(sh, r, label))
+    return out
+
+
+def _rounding_improper_warnings(sh: _Shared, r: Realization, label: str) -> list[str]:
+    """Name each channel whose excess leading numerator coefficients are rounding residue,
+    with their size and their largest effect over the frequencies where it was decided."""
+    from .stored_evaluation import improper_effect
+
+    found = getattr(r.stored, "rounding_improper", ())
+    if not found:
+        return []
+    top = float(np.max(sh.grid, initial=0.0))
+    pts = contour_points(sh.contour, sh.grid, r.sample_period)
+    out = []
+    for item in found:
+        i, j = item["channel"]
+        effect = improper_effect(r.stored, i, j, pts) / sh.scale if sh.scale > 0 else float("inf")
+        out.append(
+            f"{label}: channel [{i}][{j}] has numerator degree {item['numerator_degree']} > "
+            f"denominator degree {item['denominator_degree']}; the excess leading coefficient(s) "
+            f"{', '.join(f'{v:.3g}' for v in item['coefficients'])} are {item['relative_size']:.1e} "
+            "of the channel's coefficients (balanced variable), rounding residue: audited as "
+            f"stored up to {top:.4g} rad/s, where their effect is at most {effect:.1e} of the "
+            "peak gain; above that they grow without bound")
     return out
 
 
