@@ -298,7 +298,7 @@ def _stored_channels(r: Realization) -> list[tuple[int, int, str, Any, Any, Any]
                 out.append((i, j, "tf", np.asarray(st.numerator[i][j], dtype=float),
                             np.asarray(st.denominator[i][j], dtype=float), None))
             else:
-                out.append((i, j, "zpk", np.asarray(st.zeros[i][j], dtype=complex),
+                out.append((i, j, "factored", np.asarray(st.zeros[i][j], dtype=complex),
                             np.asarray(st.poles_[i][j], dtype=complex), float(st.gain[i, j])))
     return out
 

@@ -205,7 +205,7 @@ def _tf(num, den, period=None, name="transfer function"):  # type: ignore[no-unt
     return realization_from_transfer_function(num, den, period).with_name(name)
 
 
-def _zpk(z, p, k, period=None, name="zero-pole-gain"):  # type: ignore[no-untyped-def]
+def _factored(z, p, k, period=None, name="zero-pole-gain"):  # type: ignore[no-untyped-def]
     from audit.conversions import realization_from_zeros_poles_gain
 
     return realization_from_zeros_poles_gain(z, p, k, period).with_name(name)
@@ -293,7 +293,7 @@ def build_tf_modal(rng, n, decades, period):  # type: ignore[no-untyped-def]
         f"order {n}{' discrete' if period else ''} transfer function vs its 300-bit modal realization")
 
 
-def build_tf_zpk(rng, n, kind):  # type: ignore[no-untyped-def]
+def build_tf_factors(rng, n, kind):  # type: ignore[no-untyped-def]
     if kind == "integers":
         p, z = -np.arange(1.0, n + 1), -np.arange(1.5, n, 1.0)
     elif kind == "clustered":
@@ -301,7 +301,7 @@ def build_tf_zpk(rng, n, kind):  # type: ignore[no-untyped-def]
     else:
         p, z = _poles(rng, n, 2.0), _poles(rng, n - 1, 2.0)
     k = 10 ** rng.uniform(-1, 1)
-    return (_zpk([[z]], [[p]], [[k]]), _tf([[np.real(np.poly(z)) * k]], [[np.real(np.poly(p))]]),
+    return (_factored([[z]], [[p]], [[k]]), _tf([[np.real(np.poly(z)) * k]], [[np.real(np.poly(p))]]),
             f"degree {n} zero-pole-gain ({kind} poles) vs its expanded coefficients")
 
 
@@ -373,7 +373,7 @@ def build_tf_changed(rng, n, delta):  # type: ignore[no-untyped-def]
         f"order {n} transfer function vs companion with den[{k}] x(1+{delta:.0e})")
 
 
-def build_zpk_moved(rng, n, delta):  # type: ignore[no-untyped-def]
+def build_factors_moved(rng, n, delta):  # type: ignore[no-untyped-def]
     p, z = _poles(rng, n, 2.0), _poles(rng, n - 1, 2.0)
     moved = p.copy()
     k = int(rng.integers(0, n))
@@ -381,7 +381,7 @@ def build_zpk_moved(rng, n, delta):  # type: ignore[no-untyped-def]
     if moved[k].imag != 0:  # keep the conjugate partner
         partner = int(np.argmin(np.abs(p - np.conj(p[k]))))
         moved[partner] = np.conj(moved[k])
-    return _zpk([[z]], [[moved]], [[1.0]]), _tf([[np.real(np.poly(z))]], [[np.real(np.poly(p))]]), (
+    return _factored([[z]], [[moved]], [[1.0]]), _tf([[np.real(np.poly(z))]], [[np.real(np.poly(p))]]), (
         f"degree {n} zero-pole-gain with a pole x(1+{delta:.0e}) vs coefficients of the original")
 
 
@@ -485,10 +485,10 @@ def _families(quick: bool, documents: bool = True) -> list[tuple[str, str, list[
                                   (40, 3.0, None), (55, 2.0, None), (10, 2.0, 1e-3),
                                   (20, 2.0, 1e-3)]),
          lambda rng, n, dec, per: build_tf_modal(rng, n, dec, per)),
-        ("zpk_vs_tf", "equivalent",
+        ("factors_vs_tf", "equivalent",
          pick([(20, "integers")], [(20, "integers"), (40, "integers"), (30, "spread"),
                                    (60, "clustered"), (100, "clustered")]),
-         lambda rng, n, kind: build_tf_zpk(rng, n, kind)),
+         lambda rng, n, kind: build_tf_factors(rng, n, kind)),
         ("ss_to_tf", "equivalent",
          pick([(30, (3, 5), 0, "random", "scipy")],
               [(30, (5, 3), 0, "random", "scipy"), (30, (5, 3), 0, "random", "control"),
@@ -507,9 +507,9 @@ def _families(quick: bool, documents: bool = True) -> list[tuple[str, str, list[
         ("tf_changed", "different",
          pick([(10,)], [(10,), (20,), (30,), (40,)]),
          lambda rng, n: build_tf_changed(rng, n, _log_uniform(rng, 1e-3, 1e-2))),
-        ("zpk_moved", "different",
+        ("factors_moved", "different",
          pick([(10,)], [(10,), (20,), (40,)]),
-         lambda rng, n: build_zpk_moved(rng, n, _log_uniform(rng, 1e-3, 1e-2))),
+         lambda rng, n: build_factors_moved(rng, n, _log_uniform(rng, 1e-3, 1e-2))),
     ])
 
 

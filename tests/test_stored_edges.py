@@ -11,7 +11,7 @@ from audit.errors import InvalidModelError
 from audit.evidence import choose_contour
 from audit.loading import realization_from_document
 
-from .test_stored_references import ss_doc, tf_doc, truth, verdict_of, zpk_doc
+from .test_stored_references import ss_doc, tf_doc, truth, verdict_of, factored_doc
 
 PERIOD = 1e-5
 
@@ -58,12 +58,12 @@ def test_accumulator_on_the_circle_as_stored_shifts_by_the_least_step() -> None:
 def test_integrator_transfer_function_against_zero_pole_gain() -> None:
     # 10 / (s (s + 3)) as coefficients and as factors: exactly the same system
     tf = tf_doc([[[10.0]]], [[[1.0, 3.0, 0.0]]], None, "integrating axis (coefficients)")
-    zpk = zpk_doc([[[]]], [[[0.0, -3.0]]], [[10.0]], None, "integrating axis (factors)")
-    got, pc = verdict_of(tf, zpk)
+    factored = factored_doc([[[]]], [[[0.0, -3.0]]], [[10.0]], None, "integrating axis (factors)")
+    got, pc = verdict_of(tf, factored)
     assert got == "equivalent", pc.evidence[0].summary
     # and with the gain changed by 1e-3: different (both stored exactly)
-    zpk2 = zpk_doc([[[]]], [[[0.0, -3.0]]], [[10.01]], None, "changed")
-    assert verdict_of(tf, zpk2)[0] == "different"
+    factored2 = factored_doc([[[]]], [[[0.0, -3.0]]], [[10.01]], None, "changed")
+    assert verdict_of(tf, factored2)[0] == "different"
 
 
 def test_rounding_level_improper_numerator_is_audited_with_a_named_warning() -> None:

@@ -37,7 +37,7 @@ def tf_doc(num: Any, den: Any, period: float | None = None, name: str = "tf") ->
     }, source=name)
 
 
-def zpk_doc(zeros: Any, poles: Any, gain: Any, period: float | None = None, name: str = "zpk") -> Any:
+def factored_doc(zeros: Any, poles: Any, gain: Any, period: float | None = None, name: str = "factored") -> Any:
     def pairs(v: Any) -> list[list[float]]:
         return [[float(np.real(x)), float(np.imag(x))] for x in v]
 
@@ -301,7 +301,7 @@ def test_coefficients_spanning_thirty_decades_are_kept() -> None:
     p, z = -np.arange(1.0, 41.0), -np.arange(1.5, 40.0, 1.0)
     den, num = np.poly(p), np.poly(z)
     assert _coefficient_span(den) > 30
-    tf, zpk = tf_doc([[num]], [[den]]), zpk_doc([[z]], [[p]], [[1.0]])
+    tf, factored = tf_doc([[num]], [[den]]), factored_doc([[z]], [[p]], [[1.0]])
     r = realization_from_document(tf)
     assert r.order == 40
     # python-flint roots of the stored denominator (300 bits): all real parts <= -1 + 1e-6
@@ -309,9 +309,9 @@ def test_coefficients_spanning_thirty_decades_are_kept() -> None:
     roots = flint.acb_poly([flint.acb(float(x)) for x in den[::-1]]).roots(tol=1e-40)
     flint.ctx.prec = 53
     assert max(float(q.real.mid()) for q in roots) <= -1 + 1e-6
-    rel = truth(tf, zpk, None, np.r_[np.geomspace(1e-2, 1e3, 120), np.arange(1, 41.0)])
+    rel = truth(tf, factored, None, np.r_[np.geomspace(1e-2, 1e3, 120), np.arange(1, 41.0)])
     assert rel < 1e-10  # 300-bit evaluation of the stored doubles (issue: 6e-13)
-    got, pc = verdict_of(tf, zpk)
+    got, pc = verdict_of(tf, factored)
     assert got == "equivalent", pc.evidence[0].summary
 
 
@@ -319,10 +319,10 @@ def test_coefficients_spanning_thirty_decades_are_kept() -> None:
 def test_high_degree_clustered_poles_against_zero_pole_gain(degree: int) -> None:
     rng = np.random.default_rng(degree)
     p, z = -(1 + rng.random(degree)), -(1 + rng.random(degree - 1))
-    tf, zpk = tf_doc([[np.poly(z)]], [[np.poly(p)]]), zpk_doc([[z]], [[p]], [[1.0]])
+    tf, factored = tf_doc([[np.poly(z)]], [[np.poly(p)]]), factored_doc([[z]], [[p]], [[1.0]])
     assert realization_from_document(tf).order == degree
-    rel = truth(tf, zpk, None, np.r_[np.geomspace(1e-3, 1e3, 120), np.linspace(0.5, 3, 60)])
-    got, pc = verdict_of(tf, zpk)
+    rel = truth(tf, factored, None, np.r_[np.geomspace(1e-3, 1e3, 120), np.linspace(0.5, 3, 60)])
+    got, pc = verdict_of(tf, factored)
     assert label(rel) != "between", rel
     assert got == label(rel), (rel, pc.evidence[0].summary)
 
@@ -343,19 +343,19 @@ def test_mimo_transfer_function_against_zero_pole_gain_and_modal() -> None:
             prow.append(p)
             krow.append(k)
         nums.append(nrow); dens.append(drow); zs.append(zrow); ps.append(prow); ks.append(krow)
-    tf, zpk = tf_doc(nums, dens), zpk_doc(zs, ps, ks)
+    tf, factored = tf_doc(nums, dens), factored_doc(zs, ps, ks)
     freqs = truth_grid(np.concatenate([q for row in ps for q in row]), None, 120)
-    rel = truth(tf, zpk, None, freqs)  # python-flint, 300 bits, stored doubles
-    got, pc = verdict_of(tf, zpk)
+    rel = truth(tf, factored, None, freqs)  # python-flint, 300 bits, stored doubles
+    got, pc = verdict_of(tf, factored)
     assert label(rel) != "between", rel
     assert got == label(rel), (rel, pc.evidence[0].summary)
     # the same with one channel's gain changed by 1e-3: different by the true amount
     ks2 = [row[:] for row in ks]
     ks2[1][0] *= 1 + 1e-3
-    zpk2 = zpk_doc(zs, ps, ks2)
-    rel2 = truth(tf, zpk2, None, freqs)
+    factored2 = factored_doc(zs, ps, ks2)
+    rel2 = truth(tf, factored2, None, freqs)
     assert rel2 > DIFFERENT_MIN
-    assert verdict_of(tf, zpk2)[0] == "different"
+    assert verdict_of(tf, factored2)[0] == "different"
 
 
 def test_zero_pole_gain_against_modal_realization_discrete_near_one() -> None:
@@ -365,10 +365,10 @@ def test_zero_pole_gain_against_modal_realization_discrete_near_one() -> None:
     p[0] = 1 - 5e-8  # within 1e-7 of z = 1
     z = stable_poles(rng, 11, 2.0, period)
     den, num = np.real(np.poly(p)), np.real(np.poly(z))
-    zpk = zpk_doc([[z]], [[p]], [[1.0]], period)
+    factored = factored_doc([[z]], [[p]], [[1.0]], period)
     a, b, c, d = modal_from_tf_high_precision(num, den)
     ss = ss_doc(a, b, c, d, period)
-    rel = truth(zpk, ss, period, truth_grid(p, period))
-    got, pc = verdict_of(zpk, ss)
+    rel = truth(factored, ss, period, truth_grid(p, period))
+    got, pc = verdict_of(factored, ss)
     assert label(rel) != "between", rel
     assert got == label(rel), (rel, pc.evidence[0].summary)
