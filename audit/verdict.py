@@ -113,6 +113,10 @@ class _Shared:
     min1: Any
     min2: Any
     transform: Any = None  # T between the two realizations, when recovered
+    # absolute construction error of each realization against its stored data (sup over
+    # the grid; 0 for state space, whose matrices are the stored data)
+    construction1: float = 0.0
+    construction2: float = 0.0
 
 
 def _sigma_max(g: NDArray[np.complex128]) -> NDArray[np.float64]:
@@ -135,15 +139,70 @@ def _shared(r1: Realization, r2: Realization, min1: Any, min2: Any) -> _Shared:
         except NumericalTroubleError:
             z = np.zeros(0)
         extra.extend(_pole_frequencies(np.asarray(z), r1.sample_period))
+    for r in (r1, r2):  # the poles of the stored data, too (a converted copy may miss some)
+        if r.stored is not None:
+            extra.extend(_pole_frequencies(_finite(r.stored.poles()), r1.sample_period))
     grid = adaptive_frequency_grid([s1, s2, r1, r2], extra=tuple(extra))
-    pts = frequency_to_point(grid, s1)
-    g1, err1 = evaluate_with_error_estimate(s1, pts)
-    g2, err2 = evaluate_with_error_estimate(s2, pts)
+    g1, err1, c1 = _evaluate_stored(r1, s1, contour, grid)
+    g2, err2, c2 = _evaluate_stored(r2, s2, contour, grid)
     peak1 = peak_gain(s1)
     peak2 = peak_gain(s2)
     grid_peak = float(max(_sigma_max(g1).max(initial=0.0), _sigma_max(g2).max(initial=0.0)))
-    scale = max(_gain_or_zero(peak1.value), _gain_or_zero(peak2.value), grid_peak)
-    return _Shared(r1, r2, contour, s1, s2, grid, g1, g2, err1, err2, peak1, peak2, scale, min1, min2)
+    scale = max(_peak_as_stored(r1, s1, contour, peak1), _peak_as_stored(r2, s2, contour, peak2),
+                grid_peak)
+    return _Shared(r1, r2, contour, s1, s2, grid, g1, g2, err1, err2, peak1, peak2, scale, min1, min2,
+                   construction1=c1, construction2=c2)
+
+
+def _finite(points: NDArray[np.complexfloating]) -> NDArray[np.complex128]:
+    pts = np.asarray(points, dtype=complex)
+    return pts[np.isfinite(pts)]
+
+
+def contour_points(contour: Contour, omega: NDArray[np.float64], sample_period: float | None
+                   ) -> NDArray[np.complex128]:
+    """The points λ of the (possibly shifted) comparison contour at frequencies ω:
+    ``σ + jω`` in continuous time, ``ρ exp(jωT)`` in discrete time."""
+    w = np.asarray(omega, dtype=float)
+    if sample_period is None:
+        return (contour.shift if contour.shifted else 0.0) + 1j * w
+    z = np.exp(1j * w * sample_period)
+    return z * contour.shift if contour.shifted else z
+
+
+def _evaluate_stored(r: Realization, s: Realization, contour: Contour, omega: NDArray[np.float64]
+                     ) -> tuple[NDArray[np.complex128], NDArray[np.float64], float]:
+    """G on the contour from the STORED representation, with its error, and the measured
+    construction error of the realization (0 for state space).
+
+    State space: the matrices are the stored data; evaluated by
+    :func:`evaluate_with_error_estimate`. Transfer function / zero-pole-gain: the stored
+    coefficients or factors, with a rounding-error bound
+    (:mod:`audit.stored_evaluation`); the realization is evaluated as well and the largest
+    discrepancy is its construction error (reported, and carried into the decisive
+    error estimate where the realization located the peak).
+    """
+    pts = frequency_to_point(omega, s)
+    realized, err = evaluate_with_error_estimate(s, pts)
+    if r.stored is None:
+        return realized, err, 0.0
+    values, bound = r.stored.evaluate(contour_points(contour, omega, r.sample_period))
+    ok = np.isfinite(bound) & np.isfinite(err)
+    gap = _sigma_max(realized - values)
+    construction = float(np.max(gap[ok] - bound[ok] - err[ok], initial=0.0))
+    return values, bound, max(construction, 0.0)
+
+
+def _peak_as_stored(r: Realization, s: Realization, contour: Contour, peak: Any) -> float:
+    """The peak gain located on the realization, re-measured from the stored data."""
+    value = _gain_or_zero(peak.value)
+    if r.stored is None:
+        return value
+    f = float(getattr(peak, "frequency", np.nan))
+    if not np.isfinite(f) or f < 0:  # the high-frequency limit: the feedthrough
+        return float(np.linalg.norm(r.d, 2)) if r.d.size else 0.0
+    vals, bound = r.stored.evaluate(contour_points(contour, np.array([f]), r.sample_period))
+    return float(_sigma_max(vals)[0]) if np.isfinite(bound[0]) else 0.0
 
 
 ESTIMATE_SAFETY = 10.0
@@ -229,12 +288,18 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
     diffs = _sigma_max(sh.g1 - sh.g2)
     errs = sh.err1 + sh.err2
     pf = float(peak_e.frequency)
-    if np.isfinite(pf) and pf >= 0.0:
-        pts = frequency_to_point(np.array([pf]), sh.s1)
+    stored = sh.r1.stored is not None or sh.r2.stored is not None
+    extra = [pf] if np.isfinite(pf) and pf >= 0.0 else []
+    if stored:
+        # the search ran on converted copies: also refine around the largest local maxima
+        # of the difference of the STORED models on the grid
+        extra += _refinement_frequencies(freqs, diffs)
+    if extra:
         try:
-            g1p, e1p = evaluate_with_error_estimate(sh.s1, pts)
-            g2p, e2p = evaluate_with_error_estimate(sh.s2, pts)
-            freqs = np.append(freqs, pf)
+            ex = np.array(extra)
+            g1p, e1p, _ = _evaluate_stored(sh.r1, sh.s1, sh.contour, ex)
+            g2p, e2p, _ = _evaluate_stored(sh.r2, sh.s2, sh.contour, ex)
+            freqs = np.append(freqs, ex)
             diffs = np.append(diffs, _sigma_max(g1p - g2p))
             errs = np.append(errs, e1p + e2p)
         except NumericalTroubleError:
@@ -266,9 +331,11 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
             "frequency_from_search": pf,
         },
         "grid_points": int(sh.grid.size),
+        "points_evaluated": int(freqs.size),
+        "evaluated_from": [_source(sh.r1), _source(sh.r2)],
+        "construction_error_of_realizations": [sh.construction1, sh.construction2],
         "estimated_rounding_error": err_abs,
-        "error_estimate_method": "discrepancy of primal and dual Hessenberg evaluations "
-        f"x {ESTIMATE_SAFETY:g}",
+        "error_estimate_method": _error_method(sh),
         "first_order_error_bound_at_peak": _first_order_bound(sh, peak_freq),
     }
     if scale <= 0.0:
@@ -276,9 +343,17 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
         rel_err = 0.0 if err_abs <= 0.0 else float("inf")
     else:
         rel, rel_err = value_abs / scale, err_abs / scale
+    # The peak was located on realizations; where one is a converted copy, its measured
+    # construction error c bounds how far the located peak can be from the peak of the
+    # stored models (sup|D_stored| <= sup|D_realized| + c1 + c2 <= D_stored(ω*) + 2(c1 + c2)).
+    # It may only keep a difference from being declared absent, never create one.
+    construction = sh.construction1 + sh.construction2
+    rel_search = 0.0 if construction <= 0.0 else (
+        2.0 * construction / scale if scale > 0 else float("inf"))
     details["relative_rounding_error"] = rel_err
+    details["relative_search_allowance"] = rel_search
     precision = "double"
-    if rel + rel_err <= rtol:
+    if rel + rel_err + rel_search <= rtol:
         outcome = "pass"
         summary = (
             f"the difference G1 - G2 stays below {rel:.2e} of the peak gain at every "
@@ -297,7 +372,8 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
             f"{rel_err:.1e}, which straddles the tolerance {rtol:.1e}"
         )
     if outcome == "unclear" and opts.escalate:
-        outcome, summary, precision, esc = _escalate(sh, opts, freqs, diffs, errs, peak_freq, scale)
+        outcome, summary, precision, esc = _escalate(sh, opts, freqs, diffs, errs, peak_freq, scale,
+                                                     rel_search)
         details["extended_precision"] = esc
         if "relative_difference" in esc:
             rel = float(esc["relative_difference"])
@@ -315,6 +391,50 @@ def _difference_peak(sh: _Shared, opts: Options) -> Evidence:
         summary=summary,
         details=details,
     )
+
+
+def _source(r: Realization) -> str:
+    return "state-space matrices as stored" if r.stored is None else r.stored.describe()
+
+
+def _error_method(sh: _Shared) -> str:
+    parts = []
+    if sh.r1.stored is None or sh.r2.stored is None:
+        parts.append("state space: discrepancy of primal and dual Hessenberg evaluations "
+                     f"x {ESTIMATE_SAFETY:g}")
+    if sh.r1.stored is not None or sh.r2.stored is not None:
+        parts.append("transfer function / zero-pole-gain: a-priori rounding bound of Horner's "
+                     "rule or of the factor product on the stored data (Higham, Accuracy and "
+                     "Stability of Numerical Algorithms, 2nd ed., section 5.1); the peak search "
+                     "on the realization is backed by its measured construction error")
+    return "; ".join(parts)
+
+
+REFINE_MAXIMA = 4
+"""Local maxima of the stored difference on the grid that are refined (each by
+:data:`REFINE_POINTS` points between its neighbours) when a model is evaluated from stored
+coefficients or factors."""
+REFINE_POINTS = 16
+
+
+def _refinement_frequencies(freqs: NDArray[np.float64], diffs: NDArray[np.float64]) -> list[float]:
+    order = np.argsort(freqs)
+    f, d = freqs[order], diffs[order]
+    finite = np.isfinite(f) & np.isfinite(d)
+    f, d = f[finite], d[finite]
+    if f.size < 3:
+        return []
+    is_max = np.r_[d[0] >= d[1], (d[1:-1] >= d[:-2]) & (d[1:-1] >= d[2:]), d[-1] >= d[-2]]
+    idx = np.flatnonzero(is_max)
+    idx = idx[np.argsort(-d[idx])][:REFINE_MAXIMA]
+    out: list[float] = []
+    for k in idx:
+        lo, hi = f[max(k - 1, 0)], f[min(k + 1, f.size - 1)]
+        if lo > 0 and hi > lo:
+            out.extend(np.geomspace(lo, hi, REFINE_POINTS + 2)[1:-1].tolist())
+        elif hi > lo:
+            out.extend(np.linspace(lo, hi, REFINE_POINTS + 2)[1:-1].tolist())
+    return out
 
 
 def _first_order_bound(sh: _Shared, omega: float) -> float | None:
@@ -338,8 +458,13 @@ def _escalate(
     errs: NDArray[np.float64],
     peak_freq: float,
     scale: float,
+    rel_search: float = 0.0,
 ) -> tuple[str, str, str, dict[str, Any]]:
-    """Re-evaluate the straddling frequencies in ball arithmetic (see audit.precision)."""
+    """Re-evaluate the straddling frequencies in ball arithmetic (see audit.precision).
+
+    Each model is evaluated from what was stored (matrices, coefficients or factors);
+    ``rel_search`` is the allowance for a peak search that ran on a converted copy (see
+    :func:`_difference_peak`) and is added before a pass."""
     from .precision import DEFAULT_BITS, enclose_difference
 
     rtol = opts.rtol
@@ -382,7 +507,7 @@ def _escalate(
             precision,
             info,
         )
-    if complete and float(rel_hi.max()) <= rtol:
+    if complete and float(rel_hi.max()) + rel_search <= rtol:
         info["relative_difference"] = float(rel_hi.max())
         return (
             "pass",
@@ -396,6 +521,10 @@ def _escalate(
         "the time budget ran out" if not complete else
         "the extended-precision enclosure itself straddles the tolerance"
     )
+    if complete and float(rel_hi.max()) <= rtol < float(rel_hi.max()) + rel_search:
+        why = (f"the stored models agree to {rel_hi.max():.1e} at the evaluated frequencies, but "
+               f"the peak search ran on a converted copy with construction error "
+               f"{rel_search / 2:.1e} of the peak gain")
     return (
         "unclear",
         f"even in extended precision the evidence cannot settle the tolerance {rtol:.1e}: {why}",
@@ -495,6 +624,20 @@ def _markov(sh: _Shared, opts: Options) -> Evidence:
             f"the first differing Markov parameter is term {k} "
             f"({'D' if k == 0 else 'C A^' + str(k - 1) + ' B'})"
         )
+    details = cmp_.as_dict()
+    converted = [r.stored.describe() for r in (sh.r1, sh.r2) if r.stored is not None]
+    if converted:
+        details["computed_from"] = [
+            "state-space matrices as stored" if r.stored is None else
+            f"a realization of the {r.stored.describe()} (converted copy; construction error "
+            f"{c:.1e} absolute, measured on the grid)"
+            for r, c in ((sh.r1, sh.construction1), (sh.r2, sh.construction2))]
+        summary += "; computed on realizations (converted copies) of the stored data"
+        if outcome != "pass":
+            # a converted copy's Markov parameters explain, they do not contradict the
+            # decisive evidence, which is evaluated on the stored data
+            outcome = "info"
+            summary += ", so it does not weigh against the decisive evidence"
     return Evidence(
         key="markov_parameters",
         title="Scaled Markov parameters",
@@ -506,15 +649,30 @@ def _markov(sh: _Shared, opts: Options) -> Evidence:
         precision="double",
         seconds=time.perf_counter() - start,
         summary=summary,
-        details=cmp_.as_dict(),
+        details=details,
     )
 
 
 def _points_evidence(key: str, title: str, what: str, p1: NDArray[np.complexfloating],
-                     p2: NDArray[np.complexfloating]) -> Evidence:
+                     p2: NDArray[np.complexfloating],
+                     models: tuple[Realization, Realization] | None = None) -> Evidence:
     from .matching import match_points
 
     start = time.perf_counter()
+    sources = ["minimal part of the state-space matrices as stored"] * 2
+    if models is not None:
+        for k, r in enumerate(models):
+            if r.stored is None:
+                continue
+            sources[k] = f"minimal realization of the {r.stored.describe()} (converted copy)"
+            if key == "poles":  # poles of the stored data themselves
+                stored_poles = _finite(r.stored.poles())
+                if k == 0:
+                    p1 = stored_poles
+                else:
+                    p2 = stored_poles
+                sources[k] = (f"roots of the {r.stored.describe()} (double precision; each "
+                              "distinct stored denominator once)")
     mt = match_points(np.asarray(p1), np.asarray(p2))
     d = mt.as_dict()
     largest = getattr(mt, "largest_move", None)
@@ -545,7 +703,7 @@ def _points_evidence(key: str, title: str, what: str, p1: NDArray[np.complexfloa
         precision="double",
         seconds=time.perf_counter() - start,
         summary=summary,
-        details=d,
+        details={**d, "computed_from": sources},
     )
 
 
@@ -575,7 +733,10 @@ def _static_gains(sh: _Shared, opts: Options) -> Evidence:
     for name, lam in points.items():
         vals = []
         for r in (r1, r2):
-            if r.order and np.min(np.abs(np.linalg.eigvals(r.a) - lam)) <= 1e-12 * max(1.0, np.linalg.norm(r.a, 1)):
+            if r.stored is not None:  # from the stored coefficients / factors
+                v, bound = r.stored.evaluate(np.array([lam]))
+                vals.append(None if not np.isfinite(bound[0]) else v[0].real)
+            elif r.order and np.min(np.abs(np.linalg.eigvals(r.a) - lam)) <= 1e-12 * max(1.0, np.linalg.norm(r.a, 1)):
                 vals.append(None)
             else:
                 vals.append(TransferEvaluator(r).at(np.array([lam]))[0].real if r.order else r.d.copy())
@@ -591,6 +752,7 @@ def _static_gains(sh: _Shared, opts: Options) -> Evidence:
         if diff > opts.rtol:
             failing.append(name)
         results[name] = {"first": vals[0].tolist(), "second": vals[1].tolist(), "relative_difference": diff}
+    results["computed_from"] = [_source(r1), _source(r2)]
     if not discrete:
         diff = float(np.abs(r1.d - r2.d).max(initial=0)) / scale
         worst = max(worst, diff)
@@ -951,9 +1113,10 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
     from .structure import transmission_zeros
 
     poles = _points_evidence("poles", "Poles (minimal parts)", "poles",
-                             min1.realization.poles(), min2.realization.poles())
+                             min1.realization.poles(), min2.realization.poles(), models=(r1, r2))
     zeros = _points_evidence("zeros", "Transmission zeros", "transmission zeros",
-                             transmission_zeros(min1.realization), transmission_zeros(min2.realization))
+                             transmission_zeros(min1.realization), transmission_zeros(min2.realization),
+                             models=(r1, r2))
     gains = _static_gains(sh, opts)
     diff_order = _difference_minimal_order(sh, opts)
     sim = _similarity(sh, opts)
@@ -998,6 +1161,32 @@ def _warnings(sh: _Shared, ev1: Evidence, ev2: Evidence, label1: str, label2: st
                        "its hidden-mode count is uncertain")
     if sh.contour.shifted:
         out.append(f"compared on the {sh.contour.describe()}")
+    for r, label in ((sh.r1, label1), (sh.r2, label2)):
+        out.extend(_rounding_improper_warnings(sh, r, label))
+    return out
+
+
+def _rounding_improper_warnings(sh: _Shared, r: Realization, label: str) -> list[str]:
+    """Name each channel whose excess leading numerator coefficients are rounding residue,
+    with their size and their largest effect over the frequencies where it was decided."""
+    from .stored_evaluation import improper_effect
+
+    found = getattr(r.stored, "rounding_improper", ())
+    if not found:
+        return []
+    top = float(np.max(sh.grid, initial=0.0))
+    pts = contour_points(sh.contour, sh.grid, r.sample_period)
+    out = []
+    for item in found:
+        i, j = item["channel"]
+        effect = improper_effect(r.stored, i, j, pts) / sh.scale if sh.scale > 0 else float("inf")
+        out.append(
+            f"{label}: channel [{i}][{j}] has numerator degree {item['numerator_degree']} > "
+            f"denominator degree {item['denominator_degree']}; the excess leading coefficient(s) "
+            f"{', '.join(f'{v:.3g}' for v in item['coefficients'])} are {item['relative_size']:.1e} "
+            "of the channel's coefficients (balanced variable), rounding residue: audited as "
+            f"stored up to {top:.4g} rad/s, where their effect is at most {effect:.1e} of the "
+            "peak gain; above that they grow without bound")
     return out
 
 
