@@ -57,7 +57,7 @@ color:#fff;text-transform:uppercase;letter-spacing:.05em}
 .v-equivalent,.o-pass,.o-holds{background:#2e7d32}
 .v-different,.o-fail,.o-fails{background:#c62828}
 .v-inconclusive,.o-unclear,.o-not_checkable{background:#ef6c00}
-.o-info,.o-skipped{background:#757575}
+.o-info,.o-skipped,.o-not_computed{background:#757575}
 td.o{color:#fff;font-weight:bold;text-align:center}
 figure{margin:1em 0}figcaption{font-size:.9em;color:#555}
 img.plot{max-width:100%;height:auto;border:1px solid #eee}

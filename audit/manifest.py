@@ -687,6 +687,10 @@ def coordinate_change(r1: Any, r2: Any, pair: Any) -> tuple[CoordinateChange, st
     if _identical(r1, r2):
         return "identical", "the realization is identical (same matrices)", True
     minimal = [e for e in pair.evidence if e.key.startswith("minimal_order:")]
+    if any(e.value is None for e in minimal):
+        return ("transfer_only", "the minimal order of a realization could not be computed, so "
+                "'only state coordinates changed' is not decided; the transfer function is the "
+                "same", False)
     orders = [int(round(float(e.value))) for e in minimal if e.value is not None]
     both_minimal = len(orders) == 2 and orders[0] == r1.order and orders[1] == r2.order
     if r1.order != r2.order:

@@ -40,7 +40,7 @@ class EvidenceEntry(_Strict):
     metric: str = Field(description="What was measured")
     value: Number = Field(description="Measured value of the metric ('inf' when unbounded)")
     tolerance: float | None
-    outcome: Literal["pass", "fail", "unclear", "info", "skipped"]
+    outcome: Literal["pass", "fail", "unclear", "info", "skipped", "not_computed"]
     decisive: bool = Field(description="True for the evidence that decides the verdict")
     precision: str = Field(description="Arithmetic used (double, ball arithmetic, ...)")
     seconds: float

@@ -22,7 +22,7 @@ from typing import Any, Literal
 import numpy as np
 from numpy.typing import NDArray
 
-from .errors import NumericalTroubleError
+from .errors import AuditError, NumericalTroubleError
 from .evidence import (
     DEFAULT_RTOL,
     EPS,
@@ -672,11 +672,9 @@ def _time_domain(sh: _Shared, opts: Options, sim: Evidence) -> Evidence:
     start = time.perf_counter()
     # initial-condition responses (one per unit initial state) only for small models
     transform = sh.transform if sh.r1.order <= TIME_DOMAIN_INITIAL_MAX_ORDER else None
-    try:
-        cmp_ = compare_time_responses(sh.r1, sh.r2, rtol=opts.rtol, transform=transform,
-                                      max_points=TIME_DOMAIN_POINTS)
-    except NumericalTroubleError as exc:
-        return skipped("time_responses", "Time responses", f"not computed: {exc}")
+    # a failure here (overflow of an unstable model...) becomes "not computed" in _isolated
+    cmp_ = compare_time_responses(sh.r1, sh.r2, rtol=opts.rtol, transform=transform,
+                                  max_points=TIME_DOMAIN_POINTS)
     same = cmp_.outcome == "same"
     kinds = ", ".join(d.kind for d in cmp_.differences)
     summary = (
@@ -892,28 +890,70 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
     label2 = r2.name or "second model"
     if label1 == label2:
         label1, label2 = label1 + " (1)", label2 + " (2)"
-    ev_min1, min1 = minimal_order_evidence(label1, r1, tol=opts.rank_tol)
-    ev_min2, min2 = minimal_order_evidence(label2, r2, tol=opts.rank_tol)
-    sh = _shared(r1, r2, min1, min2)
-    decisive = _difference_peak(sh, opts)
-    grid_ev, grid_info = _frequency_grid(sh, opts)
-    markov = _markov(sh, opts)
+    # Each explanatory piece is computed in isolation (see _isolated): when one raises,
+    # it says "not computed" with the reason and the verdict stands on the decisive one.
+    minimal: dict[int, Any] = {}
+
+    def minimal_part(slot: int, label: str, r: Realization) -> Evidence:
+        ev, minimal[slot] = minimal_order_evidence(label, r, tol=opts.rank_tol)
+        return ev
+
+    ev_min1 = _isolated(f"minimal_order:{label1}", f"Minimal order and hidden modes of {label1}",
+                        lambda: minimal_part(1, label1, r1))
+    ev_min2 = _isolated(f"minimal_order:{label2}", f"Minimal order and hidden modes of {label2}",
+                        lambda: minimal_part(2, label2, r2))
+    min1, min2 = minimal.get(1), minimal.get(2)
+    try:
+        sh = _shared(r1, r2, min1 or _Unreduced(r1), min2 or _Unreduced(r2))
+    except Exception as exc:  # noqa: BLE001 - the verdict is inconclusive, never a crash
+        if isinstance(exc, AuditError) and not isinstance(exc, NumericalTroubleError):
+            raise
+        return _undecided_pair(r1, r2, label1, label2, ev_min1, ev_min2, exc, opts, start)
+    try:
+        decisive = _difference_peak(sh, opts)
+    except Exception as exc:  # noqa: BLE001 - the verdict is inconclusive, never a crash
+        if isinstance(exc, AuditError) and not isinstance(exc, NumericalTroubleError):
+            raise
+        decisive = _decisive_not_computed(exc)
+    grid_info: dict[str, Any] = {"channels": [], "band": None}
+
+    def grid_evidence() -> Evidence:
+        ev, info = _frequency_grid(sh, opts)
+        grid_info.update(info)
+        return ev
+
+    grid_ev = _isolated("frequency_grid", "Frequency response on the adaptive grid", grid_evidence)
+    markov = _isolated("markov_parameters", "Scaled Markov parameters", lambda: _markov(sh, opts))
     from .structure import transmission_zeros
 
-    poles = _points_evidence("poles", "Poles (minimal parts)", "poles",
-                             min1.realization.poles(), min2.realization.poles())
-    zeros = _points_evidence("zeros", "Transmission zeros", "transmission zeros",
-                             transmission_zeros(min1.realization), transmission_zeros(min2.realization))
-    gains = _static_gains(sh, opts)
-    diff_order = _difference_minimal_order(sh, opts)
-    sim = _similarity(sh, opts)
-    td = _time_domain(sh, opts, sim)
+    def needs_minimal(fn: Any) -> Any:
+        if min1 is None or min2 is None:
+            raise NumericalTroubleError("the minimal realization of a model could not be computed "
+                                        "(see its minimal-order evidence)")
+        return fn()
+
+    poles = _isolated("poles", "Poles (minimal parts)", lambda: needs_minimal(
+        lambda: _points_evidence("poles", "Poles (minimal parts)", "poles",
+                                 min1.realization.poles(), min2.realization.poles())))
+    zeros = _isolated("zeros", "Transmission zeros", lambda: needs_minimal(
+        lambda: _points_evidence("zeros", "Transmission zeros", "transmission zeros",
+                                 transmission_zeros(min1.realization), transmission_zeros(min2.realization))))
+    gains = _isolated("static_gains", "DC gain and high-frequency gain", lambda: _static_gains(sh, opts))
+    diff_order = _isolated("difference_minimal_order", "Minimal order of the difference system",
+                           lambda: _difference_minimal_order(sh, opts))
+    sim = _isolated("similarity", "State-coordinate similarity",
+                    lambda: needs_minimal(lambda: _similarity(sh, opts)))
+    td = _isolated("time_responses", "Time responses", lambda: _time_domain(sh, opts, sim))
     evidence = [decisive, ev_min1, ev_min2, diff_order, grid_ev, markov, gains, poles, zeros, sim, td]
     verdict: Verdict = {"pass": "equivalent", "fail": "different"}.get(decisive.outcome, "inconclusive")  # type: ignore[assignment]
     warnings = _warnings(sh, ev_min1, ev_min2, label1, label2)
+    warnings += _not_computed_warnings(evidence)
     diagnosis: dict[str, Any] = {}
     if verdict == "different":
-        diagnosis = _diagnose(sh, opts, grid_info, markov, poles, zeros)
+        try:
+            diagnosis = _diagnose(sh, opts, grid_info, markov, poles, zeros)
+        except Exception as exc:  # noqa: BLE001 - the diagnosis explains, it never decides
+            diagnosis = {"not_computed": _reason(exc)}
     explanation = _explain(verdict, decisive, diagnosis, warnings, label1, label2, opts)
     return PairComparison(
         reference=label1,
@@ -925,6 +965,96 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
         warnings=tuple(warnings),
         seconds=time.perf_counter() - start,
     )
+
+
+# ------------------------------------------------------- evidence in isolation
+NOT_COMPUTED = "not_computed"
+"""Outcome of a piece of evidence whose computation raised; its summary gives the reason."""
+
+@dataclass(frozen=True)
+class _Unreduced:
+    """Stand-in for a minimal realization that could not be computed: the model itself
+    (its transmission zeros then include hidden modes, which only adds grid points)."""
+
+    realization: Realization
+
+    @property
+    def order(self) -> int:
+        return self.realization.order
+
+
+def _reason(exc: BaseException) -> str:
+    """``"TypeName: message"``, with the innermost frame of our own code for a bug."""
+    import traceback
+
+    text = str(exc) if isinstance(exc, AuditError) else f"{type(exc).__name__}: {exc}"
+    if not isinstance(exc, AuditError):
+        frames = [f for f in traceback.extract_tb(exc.__traceback__) if "/audit/" in f.filename.replace("\\", "/")]
+        if frames:
+            f = frames[-1]
+            text += f" (in {f.name}, {f.filename.rsplit('/audit/', 1)[-1]}:{f.lineno})"
+    return text
+
+
+def _isolated(key: str, title: str, build: Any) -> Evidence:
+    """Run one explanatory evidence builder; when it raises, say so instead of crashing.
+
+    The returned item has outcome ``not_computed``, the reason as its summary, the time
+    spent in ``seconds``, and ``precision`` "-": the verdict never depends on it.
+    """
+    start = time.perf_counter()
+    try:
+        return build()
+    except Exception as exc:  # noqa: BLE001 - supporting evidence never takes the verdict down
+        reason = _reason(exc)
+        return Evidence(key=key, title=title, metric="-", value=None, tolerance=None,
+                        outcome=NOT_COMPUTED, decisive=False, precision="-",  # type: ignore[arg-type]
+                        seconds=time.perf_counter() - start,
+                        summary=f"not computed: {reason}", details={"error": reason})
+
+
+def _not_computed_warnings(evidence: list[Evidence]) -> list[str]:
+    missing = [e for e in evidence if e.outcome == NOT_COMPUTED and not e.decisive]
+    if not missing:
+        return []
+    return [f"{len(missing)} supporting piece(s) of evidence could not be computed ("
+            + ", ".join(e.key for e in missing) + "); the verdict rests on the decisive evidence"]
+
+
+def _decisive_not_computed(exc: BaseException) -> Evidence:
+    reason = _reason(exc)
+    return Evidence(
+        key="difference_peak_gain", title="Peak gain of the difference G1 - G2",
+        metric="sup over frequency of sigma_max(G1 - G2), relative to the larger peak gain "
+        "of the two models",
+        value=None, tolerance=None, outcome="unclear", decisive=True, precision="-", seconds=0.0,
+        summary=f"the decisive evidence could not be computed ({reason})",
+        details={"error": reason})
+
+
+def _undecided_pair(r1: Realization, r2: Realization, label1: str, label2: str, ev_min1: Evidence,
+                    ev_min2: Evidence, exc: BaseException, opts: Options, start: float) -> PairComparison:
+    """The frequency responses shared by the evidence could not be computed: inconclusive."""
+    decisive = _decisive_not_computed(exc)
+    reason = "the frequency responses it needs could not be computed"
+    others = [
+        Evidence(key=k, title=t, metric="-", value=None, tolerance=None, outcome=NOT_COMPUTED,  # type: ignore[arg-type]
+                 decisive=False, precision="-", seconds=0.0, summary=f"not computed: {reason}",
+                 details={"error": reason})
+        for k, t in (("difference_minimal_order", "Minimal order of the difference system"),
+                     ("frequency_grid", "Frequency response on the adaptive grid"),
+                     ("markov_parameters", "Scaled Markov parameters"),
+                     ("static_gains", "DC gain and high-frequency gain"),
+                     ("poles", "Poles (minimal parts)"), ("zeros", "Transmission zeros"),
+                     ("similarity", "State-coordinate similarity"), ("time_responses", "Time responses"))
+    ]
+    evidence = [decisive, ev_min1, ev_min2, *others]
+    return PairComparison(
+        reference=label1, other=label2, verdict="inconclusive",
+        explanation=(f"Cannot tell whether {label2} and {label1} are equivalent at tolerance "
+                     f"{opts.rtol:.1e}: {decisive.summary}."),
+        evidence=tuple(evidence), diagnosis={}, warnings=tuple(_not_computed_warnings(evidence)),
+        seconds=time.perf_counter() - start)
 
 
 def _warnings(sh: _Shared, ev1: Evidence, ev2: Evidence, label1: str, label2: str) -> list[str]:
@@ -1032,27 +1162,36 @@ def compare_discretized(
     sampled = sampled.with_name(f"{cont.name or 'continuous model'} ({method}, T = {period:g} s)")
     first, second = (sampled, disc) if cont is r1 else (disc, sampled)
     pair = compare_pair(first, second, options=opts)
-    start = time.perf_counter()
-    claim = check_discretization_claim(cont, disc, method=method, prewarp_frequency=prewarp_frequency,  # type: ignore[arg-type]
-                                       rtol=opts.rtol)
-    holds = claim.outcome == "holds"
-    ev = Evidence(
-        key="discretization_claim",
-        title=f"Claim: {disc.name or 'discrete model'} is the {method} discretization of "
-              f"{cont.name or 'continuous model'}",
-        metric="relative peak difference of the frequency responses up to Nyquist, and poles",
-        value=float(claim.relative_peak_difference),
-        tolerance=opts.rtol,
-        outcome="pass" if holds else "fail",
-        decisive=False,
-        precision="double",
-        seconds=time.perf_counter() - start,
-        summary=claim.message,
-        details=claim.as_dict(),
-    )
+    claim_title = (f"Claim: {disc.name or 'discrete model'} is the {method} discretization of "
+                   f"{cont.name or 'continuous model'}")
+    found: dict[str, Any] = {}
+
+    def claim_evidence() -> Evidence:
+        start = time.perf_counter()
+        claim = check_discretization_claim(cont, disc, method=method, prewarp_frequency=prewarp_frequency,  # type: ignore[arg-type]
+                                           rtol=opts.rtol)
+        found["claim"] = claim
+        return Evidence(
+            key="discretization_claim",
+            title=claim_title,
+            metric="relative peak difference of the frequency responses up to Nyquist, and poles",
+            value=float(claim.relative_peak_difference),
+            tolerance=opts.rtol,
+            outcome="pass" if claim.outcome == "holds" else "fail",
+            decisive=False,
+            precision="double",
+            seconds=time.perf_counter() - start,
+            summary=claim.message,
+            details=claim.as_dict(),
+        )
+
+    # the claim check explains; when it raises, it says so and the verdict stands
+    ev = _isolated("discretization_claim", claim_title, claim_evidence)
+    claim = found.get("claim")
+    holds = claim is None or claim.outcome == "holds"
     diagnosis = dict(pair.diagnosis)
     explanation = pair.explanation
-    if not holds:
+    if claim is not None and not holds:
         diagnosis["discretization"] = {"claimed": method, "matching_method": claim.matching_method,
                                        "message": claim.message}
         if claim.matching_method:
@@ -1081,11 +1220,25 @@ def compare_sample_periods(r1: Realization, r2: Realization, *, options: Options
     check_io = r1.n_inputs == r2.n_inputs and r1.n_outputs == r2.n_outputs
     if not check_io:
         check_comparable(r1, r2)  # raises the input/output message
-    chk = detect_sample_period_mismatch(r1, r2, rtol=opts.rtol)
     label1, label2 = r1.name or "first model", r2.name or "second model"
     assert r1.sample_period is not None and r2.sample_period is not None
     head = (f"{label2} is sampled at T = {r2.sample_period:g} s but {label1} at "
             f"T = {r1.sample_period:g} s")
+    try:
+        chk = detect_sample_period_mismatch(r1, r2, rtol=opts.rtol)
+    except Exception as exc:  # noqa: BLE001 - the labelled periods differ: that decides
+        reason = _reason(exc)
+        summary = f"{head}; the period ratio under which they would agree was not computed ({reason})"
+        ev = Evidence(
+            key="sample_period", title="Sample periods", metric="labelled periods and the period "
+            "ratio under which the poles and responses agree", value=None, tolerance=opts.rtol,
+            outcome="fail", decisive=True, precision="double", seconds=time.perf_counter() - start,
+            summary=summary, details={"error": reason})
+        return PairComparison(
+            reference=label1, other=label2, verdict="different",
+            explanation=f"{label2} is not the same discrete-time system as {label1}: {summary}.",
+            evidence=(ev,), diagnosis={"sample_period": {"error": reason}},
+            warnings=("the period-ratio explanation could not be computed",), seconds=ev.seconds)
     if chk.outcome == "period_mismatch":
         summary = (f"{head}; they describe the same continuous dynamics if the effective period "
                    f"ratio is {chk.simple_ratio or format(chk.ratio, '.6g')} "
