@@ -29,6 +29,7 @@ class _Parser(argparse.ArgumentParser):
 
 def build_parser() -> argparse.ArgumentParser:
     from .commands._options import relative_tolerance, seconds
+    from .discretization_methods import METHODS
     from .evidence import DEFAULT_RTOL
     from .verdict import ESCALATION_SECONDS
 
@@ -49,11 +50,12 @@ def build_parser() -> argparse.ArgumentParser:
     cmp_.add_argument("-o", "--output", metavar="FILE",
                       help="write the report to FILE (never overwrites) and print a one-line "
                       "summary")
-    cmp_.add_argument("--discretization", choices=("zoh", "foh", "tustin", "matched", "impulse"),
+    cmp_.add_argument("--discretization", type=_discretization_method, metavar="METHOD",
                       help="relate continuous and discrete models: the continuous one is "
-                      "discretized with this method at the discrete one's period")
+                      "discretized with METHOD at the discrete one's period; METHOD is one of "
+                      + ", ".join(METHODS))
     cmp_.add_argument("--prewarp", type=float, default=None, metavar="RAD_PER_S",
-                      help="prewarp frequency for --discretization tustin")
+                      help="prewarp frequency for --discretization bilinear")
     cmp_.add_argument("--escalation-seconds", type=seconds, default=ESCALATION_SECONDS,
                       help="time budget per pair for extended-precision re-evaluation "
                       f"(default {ESCALATION_SECONDS:g}; 0 disables it)")
@@ -65,6 +67,17 @@ def build_parser() -> argparse.ArgumentParser:
         module.add_arguments(sp)
         sp.set_defaults(_run=module.run)
     return parser
+
+
+def _discretization_method(text: str) -> str:
+    """``--discretization``: one of the method names, else a usage error listing them."""
+    from .discretization_methods import discretization_method
+    from .errors import InvalidModelError
+
+    try:
+        return discretization_method(text, field="--discretization")
+    except InvalidModelError as exc:
+        raise argparse.ArgumentTypeError(str(exc).removeprefix("--discretization: ")) from None
 
 
 def _command_modules() -> list[Any]:

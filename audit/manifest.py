@@ -23,7 +23,7 @@ A claims manifest is a TOML file (TOML v1.0.0, T. Preston-Werner, 2021), by defa
 
     [[claim]]
     models = ["models/speed_zoh_1ms.json"]
-    discretization = {method = "zoh", of = "models/speed_tf.json"}
+    discretization = {method = "zero-order-hold", of = "models/speed_tf.json"}
     rtol = 1e-8
 
 Model paths are relative to the manifest's directory, written with ``/``. Each claim
@@ -75,6 +75,7 @@ from typing import Any, Literal
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, StrictStr, ValidationError, field_validator, model_validator
 
+from .discretization_methods import DiscretizationMethod, accepted_methods_text, discretization_method
 from .errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 
 __all__ = [
@@ -263,11 +264,19 @@ class DiscretizationSpec(BaseModel):
 
     model_config = _CONFIG
 
-    method: Literal["zoh", "foh", "tustin", "matched", "impulse"] = Field(
-        description="Discretization method (see audit.discretization).")
+    method: DiscretizationMethod = Field(
+        description="Discretization method: " + accepted_methods_text() + ".")
     of: StrictStr = Field(description="The continuous-time model, relative to the manifest.")
     prewarp_frequency: float | None = Field(
-        default=None, description="Tustin prewarping frequency in rad/s (optional).")
+        default=None, description="Prewarp frequency in rad/s of the bilinear method (optional).")
+
+    @field_validator("method", mode="before")
+    @classmethod
+    def _method(cls, value: Any) -> Any:
+        try:
+            return discretization_method(value, field="method")
+        except InvalidModelError as exc:  # pydantic wants ValueError with a plain message
+            raise ValueError(str(exc).removeprefix("method: ")) from None
 
     @field_validator("of")
     @classmethod
@@ -333,7 +342,7 @@ class Claim(BaseModel):
         return "form" if self.form is not None else "discretization"
 
     def describe(self) -> str:
-        """The expectation in words, e.g. ``"zoh discretization of models/c.json"``."""
+        """The expectation in words, e.g. ``"zero-order-hold discretization of models/c.json"``."""
         if self.expect is not None:
             return self.expect
         if self.form is not None:

@@ -657,7 +657,7 @@ def _similarity(sh: _Shared, opts: Options) -> Evidence:
 TIME_DOMAIN_MAX_ORDER = 400
 """Above this order (either model) the explanatory time-domain check is skipped."""
 TIME_DOMAIN_POINTS = 1000
-"""Samples of the common time grid (exact ZOH marching between them)."""
+"""Samples of the common time grid (exact zero-order-hold marching between them)."""
 TIME_DOMAIN_INITIAL_MAX_ORDER = 20
 """Initial-condition responses through the recovered T are compared up to this order."""
 

@@ -23,7 +23,7 @@ from audit.realization import Realization
 from audit.timedomain import response_horizon, step_response
 from audit.verdict import compare_pair
 
-_ZOH = "zoh"  # the zero-order-hold method keyword
+_ZOH = "zero-order-hold"
 
 
 def _write(tmp_path, name, a, b, c, d, period):

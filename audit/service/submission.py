@@ -55,8 +55,9 @@ from dataclasses import dataclass, field
 from typing import Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
+from ..discretization_methods import DiscretizationMethod, accepted_methods_text, discretization_method
 from ..errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from ..realization import SAMPLE_PERIOD_RTOL, Realization
 
@@ -92,7 +93,6 @@ FORM_RTOL = 1e-9
 BANDWIDTH_BISECTION_RTOL = 1e-12
 MAX_MODELS = 16
 
-_Method = Literal["zoh", "foh", "tustin", "matched", "impulse"]
 
 
 class _Strict(BaseModel):
@@ -102,9 +102,18 @@ class _Strict(BaseModel):
 class DiscretizationClaim(_Strict):
     """"The submitted discrete models are the ``method`` discretization of the reference"."""
 
-    method: _Method = Field(description="Discretization method")
+    method: DiscretizationMethod = Field(
+        description="Discretization method: " + accepted_methods_text())
     prewarp_frequency: float | None = Field(
-        default=None, gt=0, description="Tustin prewarping frequency in rad/s (optional)")
+        default=None, gt=0, description="Prewarp frequency in rad/s of the bilinear method (optional)")
+
+    @field_validator("method", mode="before")
+    @classmethod
+    def _known_method(cls, value: Any) -> Any:
+        try:
+            return discretization_method(value, field="method")
+        except InvalidModelError as exc:  # pydantic reports a ValueError as a 422 detail
+            raise ValueError(str(exc).removeprefix("method: ")) from None
 
 
 class Claims(_Strict):
