@@ -433,8 +433,15 @@ def render_compare_html(
         f'<p id="summary">{_e(data.get("summary", ""))}</p>',
         f"<p>lti-audit {_e(data.get('lti_audit_version', ''))}; tolerances: rtol = "
         f"{_e(_num(tol.get('rtol')))}, rank_tol = {_e(_num(tol.get('rank_tol')))}, "
-        f"escalation budget {_e(_num(tol.get('escalation_seconds')))} s; computed in "
-        f"{_e(_num(data.get('seconds')))} s.</p>",
+        f"escalation budget {_e(_num(tol.get('escalation_seconds')))} s"
+        + (f"; atol = {_e(_num(tol.get('atol')))}" if tol.get("atol") else "")
+        + (f"; band of interest {_e(_num(tol['band_rad_s'][0]))} to {_e(_num(tol['band_rad_s'][1]))} rad/s"
+           if tol.get("band_rad_s") else "")
+        + "".join(f"; rtol = {_e(_num(ch.get('rtol')))} for {_e(ch.get('label', ''))}"
+                  for ch in tol.get("channel_rtol") or [])
+        + f"; computed in {_e(_num(data.get('seconds')))} s.</p>"
+        + (f"<p>Tolerance rule: {_e(tol.get('rule', ''))}.</p>"
+           if tol.get("atol") or tol.get("band_rad_s") or tol.get("channel_rtol") else ""),
         "<h2>Models</h2><table><tr><th>#</th><th>name</th><th>source</th><th>order</th>"
         "<th>inputs</th><th>outputs</th><th>time domain</th></tr>",
     ]

@@ -151,6 +151,15 @@ class Submission(_Strict):
     claim_rtol: float | None = Field(default=None, gt=0, lt=1,
                                      description=f"Tolerance of numeric claims (default {DEFAULT_CLAIM_RTOL:g})")
     escalation_seconds: float | None = Field(default=None, ge=0, le=20)
+    atol: float | None = Field(default=None, ge=0, description="Absolute tolerance on the "
+                               "difference, in the models' gain units (default 0: none)")
+    band_rad_s: list[float] | None = Field(default=None, min_length=2, max_length=2,
+                                           description="Band of interest [low, high] in rad/s: only "
+                                           "the difference inside it decides")
+    channel_rtol: list[str] = Field(default_factory=list, max_length=400,
+                                    description="Per-channel relative tolerances 'OUT:IN=R' or "
+                                    "'OUT=R' (0-based index, signal name of the first compared "
+                                    "model, or *)")
 
 
 class Tolerances(_Strict):
@@ -162,6 +171,9 @@ class Tolerances(_Strict):
     claim_rtol: float
     form_rtol: float = FORM_RTOL
     sample_period_rtol: float = SAMPLE_PERIOD_RTOL
+    atol: float = 0.0
+    band_rad_s: list[float] | None = None
+    channel_rtol: list[str] = Field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -297,7 +309,30 @@ def tolerances_for(sub: Submission) -> Tolerances:
         escalation_seconds=(DEFAULT_ESCALATION_SECONDS if sub.escalation_seconds is None
                             else sub.escalation_seconds),
         claim_rtol=DEFAULT_CLAIM_RTOL if sub.claim_rtol is None else sub.claim_rtol,
+        atol=0.0 if sub.atol is None else sub.atol,
+        band_rad_s=sub.band_rad_s,
+        channel_rtol=list(sub.channel_rtol),
     )
+
+
+def _stated_tolerances(ps: ParsedSubmission, tol: Tolerances, first: Realization) -> dict[str, Any]:
+    """atol, band and channel tolerances as Options fields (names from the first compared
+    model's document); bad values raise InvalidModelError (422)."""
+    from ..band_peak import check_band
+    from ..tolerances import parse_channel_tolerance, resolve_channel_tolerances
+
+    out: dict[str, Any] = {"atol": tol.atol}
+    if tol.band_rad_s is not None:
+        out["band"] = check_band(tol.band_rad_s, field="band_rad_s")
+    if tol.channel_rtol:
+        raw = ps.submission.reference if ps.submission.reference is not None else ps.submission.models[0]
+        names = {k: [str(s.get("name")) for s in raw.get(k) or [] if isinstance(s, dict)] or None
+                 for k in ("inputs", "outputs")}
+        out["channel_rtol"] = resolve_channel_tolerances(
+            [parse_channel_tolerance(t, field="channel_rtol") for t in tol.channel_rtol],
+            n_outputs=first.n_outputs, n_inputs=first.n_inputs, output_names=names["outputs"],
+            input_names=names["inputs"], field="channel_rtol")
+    return out
 
 
 # ------------------------------------------------------------------ bandwidth
@@ -614,7 +649,8 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
     verdict = "not_compared"
     if compared:
         options = Options(rtol=tol.rtol, escalate=tol.escalation_seconds > 0,
-                          escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol)
+                          escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol,
+                          **_stated_tolerances(ps, tol, compared[0]))
         t0 = time.perf_counter()
         pairs = compare_models(compared, options=options)
         verdict = overall_verdict(pairs)
