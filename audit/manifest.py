@@ -361,9 +361,9 @@ class Claim(BaseModel):
 
             for key, v in value.items():
                 try:
-                    parse_channel_tolerance(f"{key}={v!r}", field="")
+                    parse_channel_tolerance(f"{key}={v!r}", field="entry")
                 except InvalidModelError as exc:
-                    raise ValueError(f"entry {key!r}: {str(exc).removeprefix(': ')}") from None
+                    raise ValueError(str(exc)) from None
         return value
 
     def channel_tolerances(self) -> list[Any]:

@@ -651,6 +651,11 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
     scale = sh.scale if sh.scale > 0 else 1.0
     diff = np.abs(sh.g1 - sh.g2)  # (k, p, m)
     errs = (sh.err1 + sh.err2)[:, None, None]
+    # a channel "differs" by the same allowance the decision uses (stated tolerances)
+    own_rtol = {(i, j): v for i, j, v in opts.channel_rtol}
+    in_band = np.ones(sh.grid.shape, dtype=bool)
+    if opts.band is not None:
+        in_band = (sh.grid >= opts.band[0]) & (sh.grid <= opts.band[1])
     channels = []
     for i in range(p):
         for j in range(m):
@@ -658,17 +663,20 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
             k = int(np.argmax(d)) if d.size else 0
             own = float(max(np.abs(sh.g1[:, i, j]).max(initial=0), np.abs(sh.g2[:, i, j]).max(initial=0)))
             rel = float(d[k]) / scale if d.size else 0.0
-            differs = bool(d.size and (d[k] - errs[k, 0, 0]) > opts.rtol * scale)
-            channels.append(
-                {
-                    "output": i,
-                    "input": j,
-                    "relative_difference": rel,
-                    "relative_to_channel_peak": float(d[k]) / own if own > 0 else 0.0,
-                    "at_frequency_rad_s": float(sh.grid[k]) if d.size else 0.0,
-                    "differs": differs,
-                }
-            )
+            allowed = max(own_rtol.get((i, j), opts.rtol) * scale, opts.atol)
+            beyond = (d - errs[:, 0, 0]) > allowed
+            differs = bool(np.any(beyond & in_band))
+            entry = {
+                "output": i,
+                "input": j,
+                "relative_difference": rel,
+                "relative_to_channel_peak": float(d[k]) / own if own > 0 else 0.0,
+                "at_frequency_rad_s": float(sh.grid[k]) if d.size else 0.0,
+                "differs": differs,
+            }
+            if opts.band is not None:
+                entry["differs_outside_band"] = bool(np.any(beyond & ~in_band))
+            channels.append(entry)
     total = _sigma_max(sh.g1 - sh.g2)
     band = _band(sh.grid, total)
     differing = [c for c in channels if c["differs"]]
@@ -680,6 +688,11 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
     )
     if band and differing:
         summary += f"; largest discrepancy between {band[0]:.4g} and {band[1]:.4g} rad/s"
+    if opts.band is not None:
+        outside = [c for c in channels if c.get("differs_outside_band")]
+        summary += (f" (inside the band of interest {opts.band[0]:.4g} to {opts.band[1]:.4g} rad/s"
+                    + (f"; {len(outside)} channel(s) differ outside it, which does not decide)"
+                       if outside else ")"))
     ev = Evidence(
         key="frequency_grid",
         title="Frequency response on the adaptive grid",
@@ -1189,6 +1202,10 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
     verdict: Verdict = {"pass": "equivalent", "fail": "different"}.get(decisive.outcome, "inconclusive")  # type: ignore[assignment]
     warnings = _warnings(sh, ev_min1, ev_min2, label1, label2)
     warnings += _not_computed_warnings(evidence)
+    if opts.states_more_than_rtol:
+        warnings.append("only the decisive evidence and the frequency grid apply the stated "
+                        "atol / band / channel tolerances; the other supporting evidence compares "
+                        f"at rtol {opts.rtol:.1e} over all frequencies and channels")
     diagnosis: dict[str, Any] = {}
     if verdict == "different":
         try:
