@@ -402,7 +402,14 @@ def _decide_with_stated_tolerances(sh: _Shared, opts: Options) -> Evidence:
     else:
         targets = [(None, None, opts.rtol)]
     lo, hi = band if band is not None else (0.0, math.pi / period if period else math.inf)
-    results = [_decide_target(sh, opts, i, j, rt, (lo, hi)) for i, j, rt in targets]
+    # one extended-precision budget for the pair, shared by the targets in turn
+    results = []
+    budget_end = time.perf_counter() + opts.escalation_seconds
+    for i, j, rt in targets:
+        left = max(0.0, budget_end - time.perf_counter())
+        results.append(_decide_target(sh, replace(opts, escalation_seconds=left,
+                                                  escalate=opts.escalate and left > 0),
+                                      i, j, rt, (lo, hi)))
     worst = max(results, key=lambda t: t["used_fraction"])
     outcomes = {t["outcome"] for t in results}
     outcome = "fail" if "fail" in outcomes else "unclear" if "unclear" in outcomes else "pass"
