@@ -372,3 +372,17 @@ def test_service_submission_states_and_applies_tolerances(tmp_path):
     assert report["comparison"]["tolerances"]["channel_rtol"][0]["rtol"] == 0.01
     bad = client.post("/audits", json={**body, "channel_rtol": ["speed=1e-3"]}, headers=headers)
     assert bad.status_code == 422 and "no output named 'speed'" in bad.text
+
+
+def test_straddling_allowance_is_settled_in_extended_precision():
+    # the difference is the feedthrough offset fl(0.002) at every frequency (by construction);
+    # an allowance 1e-14 above it straddles the double-precision error estimate, so the band
+    # decision goes to ball arithmetic, which proves it; 1e-14 below must never pass
+    r1 = Realization.from_arrays([[-1.0]], [[1.0]], [[1.0]], [[0.0]])
+    r2 = Realization.from_arrays([[-1.0]], [[1.0]], [[1.0]], [[0.002]])
+    above = compare_pair(r1, r2, options=Options(band=(0.0, 10.0), atol=0.002 * (1 + 1e-14)))
+    assert above.verdict == "equivalent"
+    assert above.evidence[0].precision.startswith("ball arithmetic")
+    assert above.evidence[0].details["targets"][0]["extended_precision"]["complete"] is True
+    below = compare_pair(r1, r2, options=Options(band=(0.0, 10.0), atol=0.002 * (1 - 1e-14)))
+    assert below.verdict != "equivalent"
