@@ -217,7 +217,7 @@ def band_limited_peak(
     >>> r = Realization.from_arrays([[-1.0]], [[1.0]], [[1.0]], [[0.0]])
     >>> p = band_limited_peak(r, (2.0, 5.0))   # 1 / |j w + 1| is largest at w = 2
     >>> round(p.value, 12), p.frequency, p.certified
-    (0.447213595499, 2.0, True)
+    (0.4472135955, 2.0, True)
     """
     lo, hi = check_band(band, sample_period=r.sample_period)
     evaluator = TransferEvaluator(r)

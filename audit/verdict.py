@@ -88,6 +88,18 @@ class Options:
     band: tuple[float, float] | None = None
     channel_rtol: tuple[tuple[int, int, float], ...] = ()
 
+    def __post_init__(self) -> None:
+        from .errors import InvalidModelError
+
+        if not (math.isfinite(self.atol) and self.atol >= 0.0):
+            raise InvalidModelError(f"atol: got {self.atol!r} but a finite number >= 0 was expected",
+                                    field="atol")
+        for entry in self.channel_rtol:
+            i, j, v = entry
+            if int(i) < 0 or int(j) < 0 or not (0.0 < float(v) < 1.0):
+                raise InvalidModelError(f"channel_rtol: got {entry!r} but (output >= 0, input >= 0, "
+                                        "0 < rtol < 1) was expected", field="channel_rtol")
+
     @property
     def states_more_than_rtol(self) -> bool:
         """True when an absolute tolerance, a band or channel tolerances are stated."""
@@ -397,6 +409,13 @@ def _decide_with_stated_tolerances(sh: _Shared, opts: Options) -> Evidence:
     if opts.channel_rtol:
         own = {(i, j): v for i, j, v in opts.channel_rtol}
         p, m = sh.r1.n_outputs, sh.r1.n_inputs
+        outside = [(i, j) for i, j in own if i >= p or j >= m]
+        if outside:
+            from .errors import InvalidModelError
+
+            raise InvalidModelError(f"channel_rtol: channel(s) {outside} do not exist; the models "
+                                    f"have {p} output(s) and {m} input(s), numbered from 0",
+                                    field="channel_rtol")
         targets: list[tuple[int | None, int | None, float]] = [
             (i, j, own.get((i, j), opts.rtol)) for i in range(p) for j in range(m)]
     else:

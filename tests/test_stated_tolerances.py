@@ -386,3 +386,13 @@ def test_straddling_allowance_is_settled_in_extended_precision():
     assert above.evidence[0].details["targets"][0]["extended_precision"]["complete"] is True
     below = compare_pair(r1, r2, options=Options(band=(0.0, 10.0), atol=0.002 * (1 - 1e-14)))
     assert below.verdict != "equivalent"
+
+
+def test_options_refuse_bad_stated_tolerances():
+    with pytest.raises(InvalidModelError, match="atol: got -1.0"):
+        Options(atol=-1.0)
+    with pytest.raises(InvalidModelError, match="channel_rtol: got"):
+        Options(channel_rtol=((0, 0, 2.0),))
+    r1, r2 = _two_by_two(1e-3)
+    with pytest.raises(InvalidModelError, match=r"channel\(s\) \[\(2, 0\)\] do not exist"):
+        compare_pair(r1, r2, options=Options(channel_rtol=((2, 0, 1e-3),)))
