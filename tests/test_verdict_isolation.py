@@ -179,3 +179,23 @@ def test_sample_period_ratio_that_raises_still_reports_different(monkeypatch):
     pair = compare_sample_periods(r1, r2)
     assert pair.verdict == "different"
     assert "not computed (ValueError" in pair.evidence[0].summary
+
+
+def test_minimal_realization_that_raises_leaves_the_verdict_standing(monkeypatch):
+    from audit.manifest import coordinate_change
+
+    from audit.realization import similarity_transformed
+
+    monkeypatch.setattr(verdict_module, "minimal_order_evidence", _boom)
+    r1, _ = _pair()
+    r2 = similarity_transformed(r1, np.array([[2.0, 1.0], [0.0, 1.0]])).with_name("other")
+    pair = compare_pair(r1, r2)
+    assert pair.verdict == "equivalent"
+    outcomes = {e.key: e.outcome for e in pair.evidence}
+    assert outcomes["minimal_order:ref"] == outcomes["minimal_order:other"] == "not_computed"
+    # these need the minimal parts: not computed, with the reason
+    for key in ("poles", "zeros", "similarity"):
+        assert outcomes[key] == "not_computed"
+    assert outcomes["difference_peak_gain"] == "pass"
+    kind, words, settled = coordinate_change(r1, r2, pair)
+    assert kind == "transfer_only" and not settled and "could not be computed" in words
