@@ -577,6 +577,10 @@ def _decide_target(sh: _Shared, opts: Options, i: int | None, j: int | None, rto
         "used_fraction": value / allowed if allowed > 0 else (0.0 if value == 0 else float("inf")),
         "outcome": outcome, "reason": reason, "precision": precision,
         "band_peak": bp.as_dict(), "grid_points_in_band": int(np.count_nonzero(inside)),
+        # the search's own bracket (with its pessimistic first-order error bound) already
+        # proves the allowance when this is true; otherwise the located peak and the grid
+        # points measured with the primal/dual estimate decide, as over all frequencies
+        "search_bound_within_allowance": bool(bp.certified and bp.upper <= allowed),
     }
     if esc is not None:
         out["extended_precision"] = esc
