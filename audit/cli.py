@@ -133,7 +133,9 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _inspect(args)
         return int(args._run(args))
     except AuditError as exc:
-        sys.stderr.write(f"lti-audit: error: {exc}\n")
+        from .safe_output import terminal_text
+
+        sys.stderr.write(terminal_text(f"lti-audit: error: {exc}\n"))
         return EXIT_INVALID
     except KeyboardInterrupt:  # pragma: no cover
         sys.stderr.write("lti-audit: interrupted\n")
@@ -153,6 +155,7 @@ def _compare(args: argparse.Namespace) -> int:
     from .errors import IncompatibleModelsError
     from .loading import load_model_document, realization_from_document
     from .report import compare_report, render_compare_text, render_json, signal_labels
+    from .safe_output import terminal_text
     from .verdict import Options, overall_verdict
 
     if len(args.models) < 2:
@@ -161,10 +164,10 @@ def _compare(args: argparse.Namespace) -> int:
     if args.format == "html" and not args.output:
         sys.stderr.write("lti-audit: error: --format html needs -o FILE\n")
         return EXIT_INVALID
-    if args.output and os.path.exists(args.output):
-        sys.stderr.write(f"lti-audit: error: {args.output}: exists already; lti-audit never "
-                         "overwrites a file\n")
-        return EXIT_INVALID
+    if args.output:
+        from .safe_output import check_new_output
+
+        check_new_output(args.output, flag="")  # the output rule, checked before any work
     start = time.perf_counter()
     docs = [load_model_document(path) for path in args.models]
     models = [realization_from_document(doc).with_name(doc.name) for doc in docs]
@@ -190,8 +193,11 @@ def _compare(args: argparse.Namespace) -> int:
         text = render_compare_html(data, models)
     else:
         text = render_json(data) if args.format == "json" else render_compare_text(data)
+        text = text if args.format == "json" else terminal_text(text)  # names: plain text
     if args.output:
-        _write_new_file(args.output, text)
+        from .safe_output import write_output_file
+
+        write_output_file(args.output, text, flag="")
         sys.stdout.write(f"lti-audit compare: {verdict.upper()}; report written to {args.output}\n")
     else:
         sys.stdout.write(text)
@@ -215,29 +221,6 @@ def _stated_tolerances(args: argparse.Namespace, doc: Any, reference: Any) -> di
             input_names=[s.name for s in doc.inputs] if getattr(doc, "inputs", None) else None,
             field="--channel-rtol")
     return out
-
-
-def _write_new_file(path: str, text: str) -> None:
-    """Write ``text`` to a new file atomically; never replace an existing file."""
-    import tempfile
-
-    from .errors import InvalidModelError
-
-    directory = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=directory, prefix=".lti-audit-", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp creates 0600; give the usual mode
-        os.link(tmp, path)  # fails if path exists: no clobbering, even in a race
-    except FileExistsError:
-        raise InvalidModelError(f"{path}: exists already; lti-audit never overwrites a file") from None
-    except OSError as exc:
-        raise InvalidModelError(f"{path}: cannot write ({exc.strerror})") from None
-    finally:
-        os.unlink(tmp)
 
 
 def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore[no-untyped-def]
@@ -272,7 +255,10 @@ def _inspect(args: argparse.Namespace) -> int:
         r = r.with_name(os.path.basename(args.model))
     insp = inspect_model(r, claimed_form=getattr(doc, "claimed_form", None))
     data = inspect_report(r, args.model, insp)
-    sys.stdout.write(render_json(data) if args.format == "json" else render_inspect_text(data))
+    from .safe_output import terminal_text
+
+    sys.stdout.write(render_json(data) if args.format == "json"
+                     else terminal_text(render_inspect_text(data)))
     return {"ok": EXIT_OK, "problem": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[insp.status]
 
 

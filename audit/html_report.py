@@ -68,7 +68,9 @@ code{font-size:.95em}
 
 # --------------------------------------------------------------------- helpers
 def _e(value: Any) -> str:
-    return html.escape(str(value), quote=True)
+    from .safe_output import xml_text  # no control characters or escape sequences
+
+    return html.escape(xml_text(str(value)), quote=True)
 
 
 def _num(value: Any) -> str:
@@ -86,7 +88,10 @@ def _num(value: Any) -> str:
 def _png(fig: Any) -> str:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+    from .safe_output import plain_plot_labels
+
     FigureCanvasAgg(fig)
+    plain_plot_labels(fig)  # names are plain text, never math for the plotting library
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=96, bbox_inches="tight")
     return base64.b64encode(buf.getvalue()).decode("ascii")

@@ -225,6 +225,9 @@ def _check_relative_path(value: str) -> str:
                          "manifest's directory, written with '/'")
     if "\\" in text:
         raise ValueError(f"got {value!r}; write paths with '/' (not '\\')")
+    if ".." in text.split("/"):
+        raise ValueError(f"got {value!r}; paths must stay inside the manifest's directory "
+                         "('..' is not allowed)")
     return text
 
 
@@ -601,10 +604,11 @@ def load_claims_manifest(path: str | Path) -> ManifestFile:
         raise InvalidManifestError("manifest not found", source=source)
     if p.is_dir():
         raise InvalidManifestError("is a directory, not a manifest file", source=source)
+    from .loading import read_input_bytes  # regular files only, size-limited
+
     try:
-        text = p.read_bytes().decode("utf-8-sig")
-    except OSError as exc:
-        raise InvalidManifestError(f"cannot be read ({exc.strerror or exc})", source=source) from None
+        text = read_input_bytes(p, source=source, error=InvalidManifestError,
+                                what="a manifest file").decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise InvalidManifestError(f"is not UTF-8 text (byte {exc.start} cannot be decoded)",
                                    source=source) from None
@@ -612,6 +616,9 @@ def load_claims_manifest(path: str | Path) -> ManifestFile:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InvalidManifestError(f"TOML syntax error: {exc}", source=source) from None
+    except (RecursionError, ValueError) as exc:  # deep nesting, a 5000-digit integer
+        raise InvalidManifestError("TOML error: " + ("nesting too deep to read" if isinstance(
+            exc, RecursionError) else str(exc).split(";")[0]), source=source) from None
     content = parse_claims_manifest(data, source=source)
     return ManifestFile(p, p.resolve().parent, content)
 
@@ -800,8 +807,11 @@ class _Models:
         if rel not in self._cache:
             from .loading import load_realization
 
+            from .safe_output import path_inside
+
             path = self.directory / rel
             try:
+                path = path_inside(self.directory, rel, what=rel)  # no link out of it
                 r = load_realization(path)
                 self._cache[rel] = r.with_name(rel)
             except AuditError as exc:

@@ -74,7 +74,7 @@ def run_check(capsys, repo: Path, *extra: str) -> tuple[int, str, str, ET.Elemen
     junit = repo.parent / "out" / "junit.xml"
     md = repo.parent / "out" / "summary.md"
     code = main(["check", str(repo / "lti-audit.toml"), "--junit", str(junit),
-                 "--markdown", str(md), *extra])
+                 "--markdown", str(md), "--overwrite", *extra])
     out, err = capsys.readouterr()
     return code, out, err, ET.parse(junit).getroot(), md.read_text()
 

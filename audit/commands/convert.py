@@ -44,7 +44,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     import hashlib
-    import os
 
     from ..errors import InvalidModelError
     from ..evidence import DEFAULT_RTOL
@@ -60,14 +59,15 @@ def run(args: argparse.Namespace) -> int:
     from ..verdict import Options, compare_pair
 
     rtol = DEFAULT_RTOL if args.rtol is None else float(args.rtol)
-    if args.output and os.path.exists(args.output):
-        raise InvalidModelError(f"{args.output}: exists already; lti-audit never overwrites a "
-                                "file (choose another -o path or remove it first)")
+    if args.output:
+        from ..safe_output import check_new_output
+
+        check_new_output(args.output, flag="")  # the output rule, checked before any work
     doc = load_model_document(args.model)
     source = realization_from_document(doc)
     source = source.with_name(doc.name)
     conversion = FORMS[args.form](source)
-    new = conversion.realization.with_name(args.name or f"{doc.name} ({args.form} form)")
+    new = conversion.realization.with_name(args.name or f"{doc.name[:170]} ({args.form} form)")
     pair = compare_pair(source, new, options=Options(rtol=rtol))
     decisive = next(e for e in pair.evidence if e.decisive)
     with open(args.model, "rb") as fh:
@@ -117,8 +117,6 @@ def run(args: argparse.Namespace) -> int:
         except FileExistsError:
             raise InvalidModelError(f"{args.output}: exists already; lti-audit never "
                                     "overwrites a file") from None
-        except OSError as exc:
-            raise InvalidModelError(f"{args.output}: cannot write ({exc.strerror})") from None
         lines.append(f"  written to {args.output}")
         lines.append(CAUTION)
         sys.stdout.write("\n".join(lines) + "\n")

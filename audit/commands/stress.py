@@ -113,6 +113,9 @@ def run(args: argparse.Namespace) -> int:
             sys.stdout.write(f"{name}\t{p.description}\n")
         return 0
     out = Path(args.out)
+    from ..safe_output import new_output_directory
+
+    new_output_directory(out)  # a fresh or empty folder: campaigns never mix
     if args.merge:
         reports = []
         for d in args.merge:
