@@ -272,6 +272,10 @@ def diagnosis_lines(diag: dict[str, Any], *, short: bool = False) -> list[str]:
         lines.append(str(diag["permutation"].get("sentence", "")))
     if "constant_scale" in diag:
         lines.append(str(diag["constant_scale"].get("sentence", "")))
+    if "reversed_coefficients" in diag:
+        lines.append(str(diag["reversed_coefficients"].get("sentence", "")))
+    if "in_db_and_degrees" in diag:
+        lines.append("in dB and degrees: " + str(diag["in_db_and_degrees"].get("sentence", "")))
     moved = diag.get("moved_poles") or []
     for mv in moved[:3]:
         lines.append(f"pole moved: {_point(mv.get('first'))} -> {_point(mv.get('second'))}")
@@ -295,7 +299,7 @@ def diagnosis_lines(diag: dict[str, Any], *, short: bool = False) -> list[str]:
 
 def _point(v: Any) -> str:
     if isinstance(v, (list, tuple)) and len(v) == 2:
-        re_, im = float(v[0]), float(v[1])
+        re_, im = float(v[0]) + 0.0, float(v[1]) + 0.0  # + 0.0: no "-0"
         if im == 0.0:
             return f"{re_:.6g}"
         return f"{re_:.6g}{'+' if im >= 0 else '-'}{abs(im):.6g}j"
@@ -386,8 +390,11 @@ def render_junit_xml(run: CheckRun) -> str:
     ------
     None
     """
+    from .report import CAUTION
+
     rows = _rows(run)
     root = ET.Element("testsuites", name="lti-audit check")
+    root.append(ET.Comment(" " + CAUTION.replace("--", "- -") + " "))
     suites = []
     if run.manifest is not None or run.claims:
         suites.append((f"claims ({run.manifest or 'manifest'})", "lti-audit.claims", "claim"))
@@ -403,6 +410,9 @@ def render_junit_xml(run: CheckRun) -> str:
         suite = ET.SubElement(root, "testsuite", name=xml_text(name), tests=str(len(group)),
                               failures=str(fails), errors=str(errors), skipped="0",
                               time=f"{t:.3f}")
+        # the caution travels with the verdicts (CI systems show suite properties)
+        props = ET.SubElement(suite, "properties")
+        ET.SubElement(props, "property", name="lti-audit.caution", value=CAUTION)
         for r in group:
             case = ET.SubElement(suite, "testcase", classname=classname,
                                  name=xml_text(r.label), time=f"{r.seconds:.3f}")

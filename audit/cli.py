@@ -126,6 +126,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_INVALID
     from .errors import AuditError
 
+    if args.command in ("compare", "inspect", "convert", "check"):
+        from ._threads import set_audit_threads
+
+        set_audit_threads()  # one audit at a time: its large factorizations may use every core
     try:
         if args.command == "compare":
             return _compare(args)
@@ -161,6 +165,11 @@ def _compare(args: argparse.Namespace) -> int:
     if len(args.models) < 2:
         sys.stderr.write("lti-audit: error: compare needs at least two models (got 1)\n")
         return EXIT_INVALID
+    if args.prewarp is not None and not _is_bilinear(args.discretization):
+        sys.stderr.write("lti-audit: error: --prewarp applies only to the bilinear (Tustin) "
+                         "discretization; give --discretization with the bilinear method, or "
+                         f"drop --prewarp (got --discretization {args.discretization})\n")
+        return EXIT_INVALID
     if args.format == "html" and not args.output:
         sys.stderr.write("lti-audit: error: --format html needs -o FILE\n")
         return EXIT_INVALID
@@ -190,7 +199,7 @@ def _compare(args: argparse.Namespace) -> int:
     if args.format == "html":
         from .html_report import render_compare_html
 
-        text = render_compare_html(data, models)
+        text = render_compare_html(data, _drawn_models(models, args))
     else:
         text = render_json(data) if args.format == "json" else render_compare_text(data)
         text = text if args.format == "json" else terminal_text(text)  # names: plain text
@@ -221,6 +230,27 @@ def _stated_tolerances(args: argparse.Namespace, doc: Any, reference: Any) -> di
             input_names=[s.name for s in doc.inputs] if getattr(doc, "inputs", None) else None,
             field="--channel-rtol")
     return out
+
+
+def _is_bilinear(method: str | None) -> bool:
+    """Whether a discretization method name is the bilinear (Tustin) map, the only one
+    with a prewarp frequency."""
+    return method is not None and ("tustin" in method.lower() or "bilinear" in method.lower())
+
+
+def _drawn_models(models: list[Any], args: argparse.Namespace) -> list[Any]:
+    """The models as drawn on one diagram: with ``--discretization``, every continuous-time
+    model is replaced by its declared discretization at the first discrete model's period
+    (what its pair was compared with)."""
+    discrete = [m for m in models if m.is_discrete]
+    if not args.discretization or not discrete or len(discrete) == len(models):
+        return models
+    from .discretization import discretize
+
+    period = float(discrete[0].sample_period)
+    return [m if m.is_discrete else discretize(
+        m, period, method=args.discretization, prewarp_frequency=args.prewarp).with_name(
+        f"{m.name} ({args.discretization}, T = {period:g} s)") for m in models]
 
 
 def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore[no-untyped-def]

@@ -488,6 +488,9 @@ def load_model_document(path: str | Path) -> ModelDocument:
     p = Path(path)
     source = str(path)
     suffix = p.suffix.lower()
+    if p.is_dir():
+        raise InvalidModelError("is a directory, not a model file (expected a .json, .yaml, "
+                                ".yml, .toml or .npz file)", source=source)
     if suffix not in SUPPORTED_SUFFIXES:
         raise InvalidModelError(
             f"unsupported file type {p.suffix or '(no suffix)'!r}; expected one of "

@@ -758,9 +758,10 @@ def coordinate_change(r1: Any, r2: Any, pair: Any) -> tuple[CoordinateChange, st
     sentence : str
         Plain words for reports.
     settled : bool
-        False when both realizations are minimal of equal order (so a ``T`` exists in
-        exact arithmetic) but none was found numerically: "not similar" is then not a
-        finding but a numerical limitation.
+        False when "similar" cannot be decided: a realization is not minimal (the
+        similarity of the minimal parts says nothing about the hidden modes), or both
+        are minimal of equal order (so a ``T`` exists in exact arithmetic) but none was
+        found numerically.
 
     Raises
     ------
@@ -781,9 +782,21 @@ def coordinate_change(r1: Any, r2: Any, pair: Any) -> tuple[CoordinateChange, st
     if not both_minimal:
         which = [lbl for lbl, r, o in zip(("first", "second"), (r1, r2), orders + [0, 0])
                  if o != r.order]
+        hidden = [sorted((complex(*h["location"]) for h in e.details.get("hidden_modes", [])),
+                         key=lambda z: (z.real, z.imag)) for e in minimal]
+        if len(hidden) == 2 and (len(hidden[0]) != len(hidden[1]) or any(
+                abs(a - b) > 1e-6 * max(1.0, abs(a)) for a, b in zip(*hidden))):
+            # a change of coordinates keeps every eigenvalue, hidden ones included
+            from .evidence import fmt_complex
+
+            def listed(zs: list[complex]) -> str:
+                return ", ".join(fmt_complex(z) for z in zs[:4]) or "none"
+            return ("transfer_only", f"the {' and '.join(which) or 'models'} realization(s) are "
+                    f"not minimal and their hidden modes differ ({listed(hidden[0])} vs "
+                    f"{listed(hidden[1])}); the transfer function is the same", True)
         return ("transfer_only", f"the {' and '.join(which) or 'models'} realization(s) are "
-                "not minimal (hidden modes), so 'only state coordinates changed' is not "
-                "decided; the transfer function is the same", True)
+                "not minimal and their hidden modes agree, so only the minimal parts could be "
+                "related", False)
     sim = _evidence(pair, "similarity")
     if sim is not None and sim.outcome == "info" and bool(sim.details.get("found")):
         cond = sim.details.get("condition_number")
@@ -969,7 +982,9 @@ def _check_relation(claim: Claim, models: _Models, rtol: float,
             else:
                 outcome = "fails" if settled else "inconclusive"
                 sentence = (f"{r.name} has the same transfer function as {rs[0].name}, but is "
-                            f"not a change of state coordinates of it: {words}.")
+                            f"not a change of state coordinates of it: {words}." if settled else
+                            f"{r.name} has the same transfer function as {rs[0].name}; whether it "
+                            f"is a change of state coordinates of it is not decided: {words}.")
         else:
             outcome, sentence = "holds", pair.explanation
         verdicts.append(outcome)
