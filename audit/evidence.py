@@ -10,7 +10,9 @@ gains, frequency grid, similarity transform) supports and explains the verdict.
 
 Outcomes: ``pass`` (agrees within tolerance), ``fail`` (differs beyond tolerance),
 ``unclear`` (the numerical error of the evidence straddles the tolerance), ``info``
-(reported, does not decide), ``skipped`` (not applicable, with the reason).
+(reported, does not decide), ``skipped`` (not applicable, with the reason),
+``not_computed`` (an explanatory computation failed; the reason is its summary and the
+verdict stands on the decisive evidence).
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ from numpy.typing import NDArray
 
 from .realization import Realization
 
-Outcome = Literal["pass", "fail", "unclear", "info", "skipped"]
+Outcome = Literal["pass", "fail", "unclear", "info", "skipped", "not_computed"]
 EPS = float(np.finfo(float).eps)
 
 DEFAULT_RTOL = 1e-5
@@ -81,7 +83,7 @@ class Evidence:
         The measured value of the metric (None when it has no single number).
     tolerance : float or None
         The tolerance the value was compared against.
-    outcome : {"pass", "fail", "unclear", "info", "skipped"}
+    outcome : {"pass", "fail", "unclear", "info", "skipped", "not_computed"}
     decisive : bool
         True for the evidence that decides the verdict.
     precision : str

@@ -209,7 +209,8 @@ def check_comparable(r1: Realization, r2: Realization) -> None:
         cont, disc = (label1, label2) if r1.sample_period is None else (label2, label1)
         raise IncompatibleModelsError(
             f"{cont} is continuous-time but {disc} is discrete-time; mixing them needs "
-            "a declared discretization method (--discretization zoh|foh|tustin|matched|impulse)"
+            "a declared discretization method (--discretization zero-order-hold, triangle-hold, "
+            "bilinear, matched-pole-zero or impulse-invariant)"
         )
     if not same_time_domain(r1, r2):
         raise IncompatibleModelsError(

@@ -42,7 +42,7 @@ class EvidenceEntry(_Strict):
     metric: str = Field(description="What was measured")
     value: Number = Field(description="Measured value of the metric ('inf' when unbounded)")
     tolerance: float | None
-    outcome: Literal["pass", "fail", "unclear", "info", "skipped"]
+    outcome: Literal["pass", "fail", "unclear", "info", "skipped", "not_computed"]
     decisive: bool = Field(description="True for the evidence that decides the verdict")
     precision: str = Field(description="Arithmetic used (double, ball arithmetic, ...)")
     seconds: float
@@ -123,8 +123,23 @@ class ModelEntry(_Strict):
                                                    "behind the classification of hidden_modes")
 
 
+class ChannelTolerance(_Strict):
+    output: int = Field(description="0-based output index")
+    input: int = Field(description="0-based input index")
+    rtol: float = Field(description="Relative tolerance of this channel (relative to the reference peak gain)")
+    label: str = Field(description="The channel with its signal names, when the documents give them")
+
+
 class Tolerances(_Strict):
     rtol: float = Field(description="Relative tolerance on the peak gain of G1 - G2")
+    atol: float = Field(default=0.0, description="Absolute tolerance on the difference, in the models' "
+                        "gain units (output units per input unit); 0: none. A difference within the "
+                        "larger of rtol x reference peak gain and atol passes")
+    band_rad_s: list[float] | None = Field(default=None, description="Band of interest [low, high] in "
+                                           "rad/s: only the difference inside it decides")
+    channel_rtol: list[ChannelTolerance] = Field(default_factory=list, description="Per-channel relative "
+                                                 "tolerances; when given the decision is made channel by channel")
+    rule: str = Field(default="", description="The decision rule in words")
     rank_tol: float | None = Field(description="Staircase rank tolerance (null: scale-aware default)")
     escalation_seconds: float = Field(description="Time budget for extended precision per pair")
 
@@ -222,8 +237,7 @@ def compare_report(models: list[Any], sources: list[str], pairs: list[Any], opti
         "lti_audit_version": package_version(),
         "verdict": verdict,
         "summary": summary,
-        "tolerances": {"rtol": options.rtol, "rank_tol": options.rank_tol,
-                       "escalation_seconds": options.escalation_seconds},
+        "tolerances": tolerances_entry(options, (signals or [None])[0]),
         "models": entries,
         "comparisons": [p.as_dict() for p in pairs],
         "problems": problems,
@@ -233,6 +247,39 @@ def compare_report(models: list[Any], sources: list[str], pairs: list[Any], opti
     data = to_jsonable(data)
     CompareReport.model_validate(data)
     return data
+
+
+def tolerances_entry(options: Any, signals: dict[str, list[str] | None] | None = None) -> dict[str, Any]:
+    """The ``tolerances`` object of a report: every tolerance as stated, and the rule."""
+    from .tolerances import channel_label
+
+    outs = (signals or {}).get("outputs")
+    ins = (signals or {}).get("inputs")
+    band = getattr(options, "band", None)
+    channels = list(getattr(options, "channel_rtol", ()) or ())
+    atol = float(getattr(options, "atol", 0.0) or 0.0)
+    rule = ("pass when the peak of the difference" + (" inside the band" if band else "")
+            + (" in each channel" if channels else " (largest singular value)")
+            + " is within the larger of rtol x the larger peak gain of the two models"
+            + (" (the channel's own rtol where stated)" if channels else "") + f" and atol ({atol:g})")
+    return {"rtol": options.rtol, "rank_tol": options.rank_tol,
+            "escalation_seconds": options.escalation_seconds, "atol": atol,
+            "band_rad_s": None if band is None else [float(band[0]), float(band[1])],
+            "channel_rtol": [{"output": i, "input": j, "rtol": v, "label": channel_label(i, j, outs, ins)}
+                             for i, j, v in channels],
+            "rule": rule}
+
+
+def _tolerance_line(tol: dict[str, Any]) -> str:
+    parts = [f"rtol {tol['rtol']:.1e}"]
+    if tol.get("atol"):
+        parts.append(f"atol {tol['atol']:.3g}")
+    if tol.get("band_rad_s"):
+        lo, hi = tol["band_rad_s"]
+        parts.append(f"band {lo:.4g} to {hi:.4g} rad/s")
+    for ch in tol.get("channel_rtol") or []:
+        parts.append(f"rtol {ch['rtol']:.1e} for {ch['label']}")
+    return ", ".join(parts)
 
 
 def _compare_summary(pairs: list[Any], verdict: str) -> str:
@@ -339,7 +386,9 @@ def compare_headline(data: dict[str, Any]) -> str:
 
 
 def render_compare_text(data: dict[str, Any]) -> str:
-    lines = [f"{compare_headline(data)}  (rtol {data['tolerances']['rtol']:.1e})"]
+    lines = [f"{compare_headline(data)}  ({_tolerance_line(data['tolerances'])})"]
+    if data["tolerances"].get("atol") or data["tolerances"].get("band_rad_s") or data["tolerances"].get("channel_rtol"):
+        lines.append(_wrap("tolerance rule: " + data["tolerances"]["rule"], "  "))
     for i, m in enumerate(data["models"]):
         role = "reference" if i == 0 else f"model {i}"
         dom = "continuous" if m["sample_period"] is None else f"discrete T={m['sample_period']:g}s"

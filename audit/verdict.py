@@ -15,6 +15,7 @@ Sets of more than two models are compared pairwise against the first.
 from __future__ import annotations
 
 import itertools
+import math
 import time
 from dataclasses import dataclass, field
 from typing import Any, Literal
@@ -22,7 +23,7 @@ from typing import Any, Literal
 import numpy as np
 from numpy.typing import NDArray
 
-from .errors import NumericalTroubleError
+from .errors import AuditError, NumericalTroubleError
 from .evidence import (
     DEFAULT_RTOL,
     EPS,
@@ -56,12 +57,59 @@ order 400), and it only explains the verdict."""
 
 @dataclass(frozen=True)
 class Options:
-    """Tolerances and budgets of an audit (all documented, all overridable)."""
+    """Tolerances and budgets of an audit (all documented, all overridable).
+
+    Attributes
+    ----------
+    rtol : float
+        Relative tolerance on the peak gain of ``G1 - G2``, relative to the larger peak
+        gain of the two models over all frequencies.
+    atol : float
+        Absolute tolerance on the same difference, in the models' gain units (output
+        units per input unit); 0: none. A difference is within tolerance when it is
+        within the larger of ``rtol x reference peak gain`` and ``atol``.
+    band : (low, high) or None
+        Band of interest in rad/s: only the peak of the difference inside it decides;
+        the peak over all frequencies is still reported.
+    channel_rtol : tuple of (output, input, rtol)
+        Per-channel relative tolerances (0-based indices; see
+        :func:`audit.tolerances.resolve_channel_tolerances`). When given, the decision
+        is made channel by channel on ``|G1[i, j] - G2[i, j]|``; channels not listed
+        keep ``rtol``.
+    escalate, escalation_seconds, rank_tol
+        Extended-precision re-evaluation and its budget; staircase rank tolerance.
+    """
 
     rtol: float = DEFAULT_RTOL
     escalate: bool = True
     escalation_seconds: float = ESCALATION_SECONDS
     rank_tol: float | None = None
+    atol: float = 0.0
+    band: tuple[float, float] | None = None
+    channel_rtol: tuple[tuple[int, int, float], ...] = ()
+
+    def __post_init__(self) -> None:
+        from .errors import InvalidModelError
+
+        if not (math.isfinite(self.atol) and self.atol >= 0.0):
+            raise InvalidModelError(f"atol: got {self.atol!r} but a finite number >= 0 was expected",
+                                    field="atol")
+        for entry in self.channel_rtol:
+            i, j, v = entry
+            if int(i) < 0 or int(j) < 0 or not (0.0 < float(v) < 1.0):
+                raise InvalidModelError(f"channel_rtol: got {entry!r} but (output >= 0, input >= 0, "
+                                        "0 < rtol < 1) was expected", field="channel_rtol")
+
+    @property
+    def states_more_than_rtol(self) -> bool:
+        """True when an absolute tolerance, a band or channel tolerances are stated."""
+        return self.atol > 0.0 or self.band is not None or bool(self.channel_rtol)
+
+    def stated(self) -> dict[str, Any]:
+        """The tolerances as stated, for reports."""
+        return {"rtol": self.rtol, "atol": self.atol,
+                "band_rad_s": None if self.band is None else [float(x) for x in self.band],
+                "channel_rtol": [{"output": i, "input": j, "rtol": v} for i, j, v in self.channel_rtol]}
 
 
 @dataclass(frozen=True)
@@ -437,6 +485,228 @@ def _refinement_frequencies(freqs: NDArray[np.float64], diffs: NDArray[np.float6
     return out
 
 
+# ------------------------------------------------- tolerances a team can state
+def _channel_system(r: Realization, i: int | None, j: int | None) -> Realization:
+    """The (i, j) channel of ``r`` (the whole model when i is None)."""
+    if i is None or j is None:
+        return r
+    return Realization.from_arrays(r.a, r.b[:, [j]], r.c[[i], :], r.d[[i]][:, [j]], r.sample_period,
+                                   name=r.name)
+
+
+def _decide_with_stated_tolerances(sh: _Shared, opts: Options) -> Evidence:
+    """The decisive evidence under an absolute tolerance, a band and channel tolerances.
+
+    Rule (stated in the report): the peak over the band of interest (all frequencies
+    when none) of ``sigma_max(G1 - G2)`` -- of ``|G1[i, j] - G2[i, j]|`` for each channel
+    when channel tolerances are stated -- must be within the larger of
+    ``rtol x reference peak gain`` (the channel's own rtol when stated) and ``atol``.
+    The in-band peak is located by level crossings intersected with the band
+    (:func:`audit.band_peak.band_limited_peak`), then measured like every grid point,
+    from G1 and G2 separately with a rounding-error estimate, and re-evaluated in ball
+    arithmetic where that estimate straddles the allowance.
+    """
+    from dataclasses import replace
+
+    from .band_peak import check_band
+
+    start = time.perf_counter()
+    scale = sh.scale
+    period = sh.r1.sample_period
+    band = check_band(opts.band, sample_period=period) if opts.band is not None else None
+    if band is None and not opts.channel_rtol:
+        # absolute tolerance only: the whole-axis rule with the allowance as a relative one
+        allowed = max(opts.rtol * scale, opts.atol)
+        eff = allowed / scale if scale > 0 else float("inf")
+        ev = _difference_peak(sh, replace(opts, rtol=eff))
+        rule = _rule_text(opts, scale, allowed)
+        details = {**ev.details, "stated_tolerances": opts.stated(), "rule": rule,
+                   "allowed_difference": allowed}
+        return Evidence(**{**ev.__dict__, "tolerance": eff, "details": details,
+                           "summary": f"{ev.summary}; {rule}",
+                           "seconds": time.perf_counter() - start})
+    whole = _difference_peak(sh, replace(opts, escalate=False))  # reported, decides nothing
+    if opts.channel_rtol:
+        own = {(i, j): v for i, j, v in opts.channel_rtol}
+        p, m = sh.r1.n_outputs, sh.r1.n_inputs
+        outside = [(i, j) for i, j in own if i >= p or j >= m]
+        if outside:
+            from .errors import InvalidModelError
+
+            raise InvalidModelError(f"channel_rtol: channel(s) {outside} do not exist; the models "
+                                    f"have {p} output(s) and {m} input(s), numbered from 0",
+                                    field="channel_rtol")
+        targets: list[tuple[int | None, int | None, float]] = [
+            (i, j, own.get((i, j), opts.rtol)) for i in range(p) for j in range(m)]
+    else:
+        targets = [(None, None, opts.rtol)]
+    lo, hi = band if band is not None else (0.0, math.pi / period if period else math.inf)
+    # one extended-precision budget for the pair, shared by the targets in turn
+    results = []
+    budget_end = time.perf_counter() + opts.escalation_seconds
+    for i, j, rt in targets:
+        left = max(0.0, budget_end - time.perf_counter())
+        results.append(_decide_target(sh, replace(opts, escalation_seconds=left,
+                                                  escalate=opts.escalate and left > 0),
+                                      i, j, rt, (lo, hi)))
+    worst = max(results, key=lambda t: t["used_fraction"])
+    outcomes = {t["outcome"] for t in results}
+    outcome = "fail" if "fail" in outcomes else "unclear" if "unclear" in outcomes else "pass"
+    if outcome == "fail":
+        worst = max((t for t in results if t["outcome"] == "fail"), key=lambda t: t["used_fraction"])
+    elif outcome == "unclear":
+        worst = max((t for t in results if t["outcome"] == "unclear"), key=lambda t: t["used_fraction"])
+    where = (f"in the band {lo:.4g} to {hi:.4g} rad/s" if band is not None else "at every frequency")
+    what = "the difference G1 - G2" if not opts.channel_rtol else f"channel {worst['channel']} of G1 - G2"
+    rel = worst["difference"] / scale if scale > 0 else 0.0
+    allowed_rel = worst["allowed"] / scale if scale > 0 else float("inf")
+    if outcome == "pass":
+        summary = (f"{where}, {what} stays below {rel:.2e} of the peak gain (allowed "
+                   f"{allowed_rel:.1e})" if not opts.channel_rtol else
+                   f"{where}, every one of {len(results)} channels stays within its allowance; the "
+                   f"closest is {worst['channel']} at {rel:.2e} of the peak gain (allowed {allowed_rel:.1e})")
+    elif outcome == "fail":
+        summary = (f"{where}, {what} reaches {rel:.3g} of the peak gain at "
+                   f"{worst['frequency']:.4g} rad/s (allowed {allowed_rel:.1e})")
+    else:
+        summary = f"{where}, {what}: {worst['reason']}"
+    if band is not None:
+        w_rel = whole.value if whole.value is not None else float("nan")
+        w_freq = whole.details.get("peak_frequency_rad_s", float("nan"))
+        inside = lo <= float(w_freq) <= hi
+        summary += (f"; over all frequencies the difference reaches {w_rel:.3g} of the peak gain at "
+                    f"{float(w_freq):.4g} rad/s" + ("" if inside else " (outside the band: reported, "
+                                                        "does not decide)"))
+    rule = _rule_text(opts, scale, None)
+    precision = "double"
+    if any(t["precision"].startswith("ball") for t in results):
+        precision = next(t["precision"] for t in results if t["precision"].startswith("ball"))
+    details: dict[str, Any] = {
+        "contour": sh.contour.describe(),
+        "stated_tolerances": opts.stated(),
+        "rule": rule,
+        "reference_peak_gain": scale,
+        "band_rad_s": [lo, hi],
+        "decided": "channel by channel" if opts.channel_rtol else "on sigma_max of the difference matrix",
+        "band_peak_method": "level crossings of the Hamiltonian (Boyd-Balakrishnan-Kabamba 1989) "
+        "intersected with the band, Bruinsma-Steinbuch iteration on the pieces; the located peak "
+        "and the in-band grid points measured from G1 and G2 separately with the primal/dual "
+        "rounding-error estimate",
+        "targets": results,
+        "whole_axis": {"relative_difference": whole.value, "peak_frequency_rad_s":
+                       whole.details.get("peak_frequency_rad_s"), "outcome_at_rtol": whole.outcome,
+                       "decides": band is None and not opts.channel_rtol},
+        "peak_frequency_rad_s": worst["frequency"],
+        "estimated_rounding_error": max(t["estimated_rounding_error"] for t in results),
+    }
+    return Evidence(
+        key="difference_peak_gain",
+        title="Peak gain of the difference G1 - G2" + (" in the band of interest" if band else "")
+        + (", channel by channel" if opts.channel_rtol else ""),
+        metric=("sup over the band of interest of " if band else "sup over frequency of ")
+        + ("|G1[i, j] - G2[i, j]| per channel" if opts.channel_rtol else "sigma_max(G1 - G2)")
+        + ", relative to the larger peak gain of the two models",
+        value=rel,
+        tolerance=allowed_rel,
+        outcome=outcome,  # type: ignore[arg-type]
+        decisive=True,
+        precision=precision,
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details=details,
+    )
+
+
+def _rule_text(opts: Options, scale: float, allowed: float | None) -> str:
+    parts = [f"allowed difference = the larger of rtol x reference peak gain "
+             f"({opts.rtol:.1e} x {scale:.6g}) and atol ({opts.atol:.6g})"]
+    if allowed is not None:
+        parts[0] += f" = {allowed:.6g}"
+    if opts.channel_rtol:
+        parts.append("decided channel by channel, with "
+                     + ", ".join(f"rtol {v:.1e} for output {i} <- input {j}" for i, j, v in opts.channel_rtol))
+    if opts.band is not None:
+        parts.append(f"only the band {opts.band[0]:.6g} to {opts.band[1]:.6g} rad/s decides")
+    return "; ".join(parts)
+
+
+def _decide_target(sh: _Shared, opts: Options, i: int | None, j: int | None, rtol_t: float,
+                   band: tuple[float, float]) -> dict[str, Any]:
+    """Decide one target (the whole matrix, or channel (i, j)) over the band."""
+    from dataclasses import replace
+
+    from .band_peak import band_limited_peak
+
+    lo, hi = band
+    scale = sh.scale
+    allowed = max(rtol_t * scale, opts.atol)
+    s1, s2 = _channel_system(sh.s1, i, j), _channel_system(sh.s2, i, j)
+    grid = np.asarray(sh.grid, dtype=float)
+    inside = (grid >= lo) & (grid <= hi)
+    if i is None:
+        diffs = _sigma_max(sh.g1 - sh.g2)[inside]
+    else:
+        diffs = np.abs(sh.g1[:, i, j] - sh.g2[:, i, j])[inside]
+    errs = (sh.err1 + sh.err2)[inside]  # bounds the error of every entry as well
+    freqs = grid[inside]
+    e = difference_system(s1, s2)
+    bp = band_limited_peak(e, (lo, hi), grid=freqs, floor=0.01 * allowed)
+    extra = [f for f in {lo, hi, bp.frequency} if np.isfinite(f) and not np.any(freqs == f)]
+    if extra:
+        pts = frequency_to_point(np.array(extra), s1)
+        try:
+            g1p, e1p = evaluate_with_error_estimate(s1, pts)
+            g2p, e2p = evaluate_with_error_estimate(s2, pts)
+            freqs = np.append(freqs, extra)
+            diffs = np.append(diffs, _sigma_max(g1p - g2p))
+            errs = np.append(errs, e1p + e2p)
+        except NumericalTroubleError:
+            pass  # a test point is numerically a pole; the grid still stands
+    if not np.isfinite(hi) or any(not np.isfinite(f) for f in [bp.frequency]):
+        hf = float(np.linalg.norm(s1.d - s2.d, 2)) if s1.d.size else 0.0
+        freqs = np.append(freqs, np.inf)
+        diffs = np.append(diffs, hf)
+        errs = np.append(errs, 4 * EPS * max(float(np.linalg.norm(s1.d, 2)) if s1.d.size else 0.0,
+                                             float(np.linalg.norm(s2.d, 2)) if s2.d.size else 0.0))
+    k = int(np.argmax(diffs)) if diffs.size else 0
+    value = float(diffs[k]) if diffs.size else 0.0
+    freq = float(freqs[k]) if diffs.size else lo
+    err = float(errs.max(initial=0.0))
+    reason = ""
+    if value - err > allowed:
+        outcome = "fail"
+    elif value + err <= allowed and bp.certified:
+        outcome = "pass"
+    else:
+        outcome = "unclear"
+        reason = (f"the in-band peak search could not be certified ({bp.note})" if not bp.certified
+                  else f"the estimate {value:.3g} has an estimated rounding error of {err:.1e}, "
+                  f"which straddles the allowance {allowed:.3g}")
+    precision = "double"
+    esc: dict[str, Any] | None = None
+    if outcome == "unclear" and bp.certified and opts.escalate and scale > 0:
+        sh_t = replace(sh, r1=_channel_system(sh.r1, i, j), r2=_channel_system(sh.r2, i, j))
+        outcome, reason, precision, esc = _escalate(sh_t, replace(opts, rtol=allowed / scale), freqs,
+                                                    diffs, errs, freq, scale)
+        if "relative_difference" in esc:
+            value = float(esc["relative_difference"]) * scale
+    label = "whole matrix" if i is None else f"output {i} <- input {j}"
+    out: dict[str, Any] = {
+        "channel": label, "output": i, "input": j, "rtol": rtol_t, "allowed": allowed,
+        "difference": value, "frequency": freq, "estimated_rounding_error": err,
+        "used_fraction": value / allowed if allowed > 0 else (0.0 if value == 0 else float("inf")),
+        "outcome": outcome, "reason": reason, "precision": precision,
+        "band_peak": bp.as_dict(), "grid_points_in_band": int(np.count_nonzero(inside)),
+        # the search's own bracket (with its pessimistic first-order error bound) already
+        # proves the allowance when this is true; otherwise the located peak and the grid
+        # points measured with the primal/dual estimate decide, as over all frequencies
+        "search_bound_within_allowance": bool(bp.certified and bp.upper <= allowed),
+    }
+    if esc is not None:
+        out["extended_precision"] = esc
+    return out
+
+
 def _first_order_bound(sh: _Shared, omega: float) -> float | None:
     """First-order worst-case rounding bound of G1 - G2 at one frequency (reported)."""
     from .frequency import TransferEvaluator
@@ -542,6 +812,11 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
     scale = sh.scale if sh.scale > 0 else 1.0
     diff = np.abs(sh.g1 - sh.g2)  # (k, p, m)
     errs = (sh.err1 + sh.err2)[:, None, None]
+    # a channel "differs" by the same allowance the decision uses (stated tolerances)
+    own_rtol = {(i, j): v for i, j, v in opts.channel_rtol}
+    in_band = np.ones(sh.grid.shape, dtype=bool)
+    if opts.band is not None:
+        in_band = (sh.grid >= opts.band[0]) & (sh.grid <= opts.band[1])
     channels = []
     for i in range(p):
         for j in range(m):
@@ -549,17 +824,20 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
             k = int(np.argmax(d)) if d.size else 0
             own = float(max(np.abs(sh.g1[:, i, j]).max(initial=0), np.abs(sh.g2[:, i, j]).max(initial=0)))
             rel = float(d[k]) / scale if d.size else 0.0
-            differs = bool(d.size and (d[k] - errs[k, 0, 0]) > opts.rtol * scale)
-            channels.append(
-                {
-                    "output": i,
-                    "input": j,
-                    "relative_difference": rel,
-                    "relative_to_channel_peak": float(d[k]) / own if own > 0 else 0.0,
-                    "at_frequency_rad_s": float(sh.grid[k]) if d.size else 0.0,
-                    "differs": differs,
-                }
-            )
+            allowed = max(own_rtol.get((i, j), opts.rtol) * scale, opts.atol)
+            beyond = (d - errs[:, 0, 0]) > allowed
+            differs = bool(np.any(beyond & in_band))
+            entry = {
+                "output": i,
+                "input": j,
+                "relative_difference": rel,
+                "relative_to_channel_peak": float(d[k]) / own if own > 0 else 0.0,
+                "at_frequency_rad_s": float(sh.grid[k]) if d.size else 0.0,
+                "differs": differs,
+            }
+            if opts.band is not None:
+                entry["differs_outside_band"] = bool(np.any(beyond & ~in_band))
+            channels.append(entry)
     total = _sigma_max(sh.g1 - sh.g2)
     band = _band(sh.grid, total)
     trade = differences_in_trade_units(sh.grid, sh.g1, sh.g2, scale=sh.scale)
@@ -572,6 +850,11 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
     )
     if band and differing:
         summary += f"; largest discrepancy between {band[0]:.4g} and {band[1]:.4g} rad/s"
+    if opts.band is not None:
+        outside = [c for c in channels if c.get("differs_outside_band")]
+        summary += (f" (inside the band of interest {opts.band[0]:.4g} to {opts.band[1]:.4g} rad/s"
+                    + (f"; {len(outside)} channel(s) differ outside it, which does not decide)"
+                       if outside else ")"))
     ev = Evidence(
         key="frequency_grid",
         title="Frequency response on the adaptive grid",
@@ -829,7 +1112,7 @@ def _similarity(sh: _Shared, opts: Options) -> Evidence:
 TIME_DOMAIN_MAX_ORDER = 400
 """Above this order (either model) the explanatory time-domain check is skipped."""
 TIME_DOMAIN_POINTS = 1000
-"""Samples of the common time grid (exact ZOH marching between them)."""
+"""Samples of the common time grid (exact zero-order-hold marching between them)."""
 TIME_DOMAIN_INITIAL_MAX_ORDER = 20
 """Initial-condition responses through the recovered T are compared up to this order."""
 
@@ -844,11 +1127,9 @@ def _time_domain(sh: _Shared, opts: Options, sim: Evidence) -> Evidence:
     start = time.perf_counter()
     # initial-condition responses (one per unit initial state) only for small models
     transform = sh.transform if sh.r1.order <= TIME_DOMAIN_INITIAL_MAX_ORDER else None
-    try:
-        cmp_ = compare_time_responses(sh.r1, sh.r2, rtol=opts.rtol, transform=transform,
-                                      max_points=TIME_DOMAIN_POINTS)
-    except NumericalTroubleError as exc:
-        return skipped("time_responses", "Time responses", f"not computed: {exc}")
+    # a failure here (overflow of an unstable model...) becomes "not computed" in _isolated
+    cmp_ = compare_time_responses(sh.r1, sh.r2, rtol=opts.rtol, transform=transform,
+                                  max_points=TIME_DOMAIN_POINTS)
     same = cmp_.outcome == "same"
     kinds = ", ".join(d.kind for d in cmp_.differences)
     summary = (
@@ -1104,29 +1385,76 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
     label2 = r2.name or "second model"
     if label1 == label2:
         label1, label2 = label1 + " (1)", label2 + " (2)"
-    ev_min1, min1 = minimal_order_evidence(label1, r1, tol=opts.rank_tol)
-    ev_min2, min2 = minimal_order_evidence(label2, r2, tol=opts.rank_tol)
-    sh = _shared(r1, r2, min1, min2)
-    decisive = _difference_peak(sh, opts)
-    grid_ev, grid_info = _frequency_grid(sh, opts)
-    markov = _markov(sh, opts)
+    # Each explanatory piece is computed in isolation (see _isolated): when one raises,
+    # it says "not computed" with the reason and the verdict stands on the decisive one.
+    minimal: dict[int, Any] = {}
+
+    def minimal_part(slot: int, label: str, r: Realization) -> Evidence:
+        ev, minimal[slot] = minimal_order_evidence(label, r, tol=opts.rank_tol)
+        return ev
+
+    ev_min1 = _isolated(f"minimal_order:{label1}", f"Minimal order and hidden modes of {label1}",
+                        lambda: minimal_part(1, label1, r1))
+    ev_min2 = _isolated(f"minimal_order:{label2}", f"Minimal order and hidden modes of {label2}",
+                        lambda: minimal_part(2, label2, r2))
+    min1, min2 = minimal.get(1), minimal.get(2)
+    try:
+        sh = _shared(r1, r2, min1 or _Unreduced(r1), min2 or _Unreduced(r2))
+    except Exception as exc:  # noqa: BLE001 - the verdict is inconclusive, never a crash
+        if isinstance(exc, AuditError) and not isinstance(exc, NumericalTroubleError):
+            raise
+        return _undecided_pair(r1, r2, label1, label2, ev_min1, ev_min2, exc, opts, start)
+    try:
+        decisive = (_decide_with_stated_tolerances(sh, opts) if opts.states_more_than_rtol
+                    else _difference_peak(sh, opts))
+    except Exception as exc:  # noqa: BLE001 - the verdict is inconclusive, never a crash
+        if isinstance(exc, AuditError) and not isinstance(exc, NumericalTroubleError):
+            raise
+        decisive = _decisive_not_computed(exc)
+    grid_info: dict[str, Any] = {"channels": [], "band": None}
+
+    def grid_evidence() -> Evidence:
+        ev, info = _frequency_grid(sh, opts)
+        grid_info.update(info)
+        return ev
+
+    grid_ev = _isolated("frequency_grid", "Frequency response on the adaptive grid", grid_evidence)
+    markov = _isolated("markov_parameters", "Scaled Markov parameters", lambda: _markov(sh, opts))
     from .structure import transmission_zeros
 
-    poles = _points_evidence("poles", "Poles (minimal parts)", "poles",
-                             min1.realization.poles(), min2.realization.poles(), models=(r1, r2))
-    zeros = _points_evidence("zeros", "Transmission zeros", "transmission zeros",
-                             transmission_zeros(min1.realization), transmission_zeros(min2.realization),
-                             models=(r1, r2))
-    gains = _static_gains(sh, opts)
-    diff_order = _difference_minimal_order(sh, opts)
-    sim = _similarity(sh, opts)
-    td = _time_domain(sh, opts, sim)
+    def needs_minimal(fn: Any) -> Any:
+        if min1 is None or min2 is None:
+            raise NumericalTroubleError("the minimal realization of a model could not be computed "
+                                        "(see its minimal-order evidence)")
+        return fn()
+
+    poles = _isolated("poles", "Poles (minimal parts)", lambda: needs_minimal(
+        lambda: _points_evidence("poles", "Poles (minimal parts)", "poles",
+                                 min1.realization.poles(), min2.realization.poles(), models=(r1, r2))))
+    zeros = _isolated("zeros", "Transmission zeros", lambda: needs_minimal(
+        lambda: _points_evidence("zeros", "Transmission zeros", "transmission zeros",
+                                 transmission_zeros(min1.realization), transmission_zeros(min2.realization),
+                                 models=(r1, r2))))
+    gains = _isolated("static_gains", "DC gain and high-frequency gain", lambda: _static_gains(sh, opts))
+    diff_order = _isolated("difference_minimal_order", "Minimal order of the difference system",
+                           lambda: _difference_minimal_order(sh, opts))
+    sim = _isolated("similarity", "State-coordinate similarity",
+                    lambda: needs_minimal(lambda: _similarity(sh, opts)))
+    td = _isolated("time_responses", "Time responses", lambda: _time_domain(sh, opts, sim))
     evidence = [decisive, ev_min1, ev_min2, diff_order, grid_ev, markov, gains, poles, zeros, sim, td]
     verdict: Verdict = {"pass": "equivalent", "fail": "different"}.get(decisive.outcome, "inconclusive")  # type: ignore[assignment]
     warnings = _warnings(sh, ev_min1, ev_min2, label1, label2)
+    warnings += _not_computed_warnings(evidence)
+    if opts.states_more_than_rtol:
+        warnings.append("only the decisive evidence and the frequency grid apply the stated "
+                        "atol / band / channel tolerances; the other supporting evidence compares "
+                        f"at rtol {opts.rtol:.1e} over all frequencies and channels")
     diagnosis: dict[str, Any] = {}
     if verdict == "different":
-        diagnosis = _diagnose(sh, opts, grid_info, markov, poles, zeros)
+        try:
+            diagnosis = _diagnose(sh, opts, grid_info, markov, poles, zeros)
+        except Exception as exc:  # noqa: BLE001 - the diagnosis explains, it never decides
+            diagnosis = {"not_computed": _reason(exc)}
     explanation = _explain(verdict, decisive, diagnosis, warnings, label1, label2, opts)
     return PairComparison(
         reference=label1,
@@ -1138,6 +1466,96 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
         warnings=tuple(warnings),
         seconds=time.perf_counter() - start,
     )
+
+
+# ------------------------------------------------------- evidence in isolation
+NOT_COMPUTED = "not_computed"
+"""Outcome of a piece of evidence whose computation raised; its summary gives the reason."""
+
+@dataclass(frozen=True)
+class _Unreduced:
+    """Stand-in for a minimal realization that could not be computed: the model itself
+    (its transmission zeros then include hidden modes, which only adds grid points)."""
+
+    realization: Realization
+
+    @property
+    def order(self) -> int:
+        return self.realization.order
+
+
+def _reason(exc: BaseException) -> str:
+    """``"TypeName: message"``, with the innermost frame of our own code for a bug."""
+    import traceback
+
+    text = str(exc) if isinstance(exc, AuditError) else f"{type(exc).__name__}: {exc}"
+    if not isinstance(exc, AuditError):
+        frames = [f for f in traceback.extract_tb(exc.__traceback__) if "/audit/" in f.filename.replace("\\", "/")]
+        if frames:
+            f = frames[-1]
+            text += f" (in {f.name}, {f.filename.rsplit('/audit/', 1)[-1]}:{f.lineno})"
+    return text
+
+
+def _isolated(key: str, title: str, build: Any) -> Evidence:
+    """Run one explanatory evidence builder; when it raises, say so instead of crashing.
+
+    The returned item has outcome ``not_computed``, the reason as its summary, the time
+    spent in ``seconds``, and ``precision`` "-": the verdict never depends on it.
+    """
+    start = time.perf_counter()
+    try:
+        return build()
+    except Exception as exc:  # noqa: BLE001 - supporting evidence never takes the verdict down
+        reason = _reason(exc)
+        return Evidence(key=key, title=title, metric="-", value=None, tolerance=None,
+                        outcome=NOT_COMPUTED, decisive=False, precision="-",  # type: ignore[arg-type]
+                        seconds=time.perf_counter() - start,
+                        summary=f"not computed: {reason}", details={"error": reason})
+
+
+def _not_computed_warnings(evidence: list[Evidence]) -> list[str]:
+    missing = [e for e in evidence if e.outcome == NOT_COMPUTED and not e.decisive]
+    if not missing:
+        return []
+    return [f"{len(missing)} supporting piece(s) of evidence could not be computed ("
+            + ", ".join(e.key for e in missing) + "); the verdict rests on the decisive evidence"]
+
+
+def _decisive_not_computed(exc: BaseException) -> Evidence:
+    reason = _reason(exc)
+    return Evidence(
+        key="difference_peak_gain", title="Peak gain of the difference G1 - G2",
+        metric="sup over frequency of sigma_max(G1 - G2), relative to the larger peak gain "
+        "of the two models",
+        value=None, tolerance=None, outcome="unclear", decisive=True, precision="-", seconds=0.0,
+        summary=f"the decisive evidence could not be computed ({reason})",
+        details={"error": reason})
+
+
+def _undecided_pair(r1: Realization, r2: Realization, label1: str, label2: str, ev_min1: Evidence,
+                    ev_min2: Evidence, exc: BaseException, opts: Options, start: float) -> PairComparison:
+    """The frequency responses shared by the evidence could not be computed: inconclusive."""
+    decisive = _decisive_not_computed(exc)
+    reason = "the frequency responses it needs could not be computed"
+    others = [
+        Evidence(key=k, title=t, metric="-", value=None, tolerance=None, outcome=NOT_COMPUTED,  # type: ignore[arg-type]
+                 decisive=False, precision="-", seconds=0.0, summary=f"not computed: {reason}",
+                 details={"error": reason})
+        for k, t in (("difference_minimal_order", "Minimal order of the difference system"),
+                     ("frequency_grid", "Frequency response on the adaptive grid"),
+                     ("markov_parameters", "Scaled Markov parameters"),
+                     ("static_gains", "DC gain and high-frequency gain"),
+                     ("poles", "Poles (minimal parts)"), ("zeros", "Transmission zeros"),
+                     ("similarity", "State-coordinate similarity"), ("time_responses", "Time responses"))
+    ]
+    evidence = [decisive, ev_min1, ev_min2, *others]
+    return PairComparison(
+        reference=label1, other=label2, verdict="inconclusive",
+        explanation=(f"Cannot tell whether {label2} and {label1} are equivalent at tolerance "
+                     f"{opts.rtol:.1e}: {decisive.summary}."),
+        evidence=tuple(evidence), diagnosis={}, warnings=tuple(_not_computed_warnings(evidence)),
+        seconds=time.perf_counter() - start)
 
 
 def _warnings(sh: _Shared, ev1: Evidence, ev2: Evidence, label1: str, label2: str) -> list[str]:
@@ -1274,27 +1692,36 @@ def compare_discretized(
     sampled = sampled.with_name(f"{cont.name or 'continuous model'} ({method}, T = {period:g} s)")
     first, second = (sampled, disc) if cont is r1 else (disc, sampled)
     pair = compare_pair(first, second, options=opts)
-    start = time.perf_counter()
-    claim = check_discretization_claim(cont, disc, method=method, prewarp_frequency=prewarp_frequency,  # type: ignore[arg-type]
-                                       rtol=opts.rtol)
-    holds = claim.outcome == "holds"
-    ev = Evidence(
-        key="discretization_claim",
-        title=f"Claim: {disc.name or 'discrete model'} is the {method} discretization of "
-              f"{cont.name or 'continuous model'}",
-        metric="relative peak difference of the frequency responses up to Nyquist, and poles",
-        value=float(claim.relative_peak_difference),
-        tolerance=opts.rtol,
-        outcome="pass" if holds else "fail",
-        decisive=False,
-        precision="double",
-        seconds=time.perf_counter() - start,
-        summary=claim.message,
-        details=claim.as_dict(),
-    )
+    claim_title = (f"Claim: {disc.name or 'discrete model'} is the {method} discretization of "
+                   f"{cont.name or 'continuous model'}")
+    found: dict[str, Any] = {}
+
+    def claim_evidence() -> Evidence:
+        start = time.perf_counter()
+        claim = check_discretization_claim(cont, disc, method=method, prewarp_frequency=prewarp_frequency,  # type: ignore[arg-type]
+                                           rtol=opts.rtol)
+        found["claim"] = claim
+        return Evidence(
+            key="discretization_claim",
+            title=claim_title,
+            metric="relative peak difference of the frequency responses up to Nyquist, and poles",
+            value=float(claim.relative_peak_difference),
+            tolerance=opts.rtol,
+            outcome="pass" if claim.outcome == "holds" else "fail",
+            decisive=False,
+            precision="double",
+            seconds=time.perf_counter() - start,
+            summary=claim.message,
+            details=claim.as_dict(),
+        )
+
+    # the claim check explains; when it raises, it says so and the verdict stands
+    ev = _isolated("discretization_claim", claim_title, claim_evidence)
+    claim = found.get("claim")
+    holds = claim is None or claim.outcome == "holds"
     diagnosis = dict(pair.diagnosis)
     explanation = pair.explanation
-    if not holds:
+    if claim is not None and not holds:
         diagnosis["discretization"] = {"claimed": method, "matching_method": claim.matching_method,
                                        "message": claim.message}
         if claim.matching_method:
@@ -1323,11 +1750,25 @@ def compare_sample_periods(r1: Realization, r2: Realization, *, options: Options
     check_io = r1.n_inputs == r2.n_inputs and r1.n_outputs == r2.n_outputs
     if not check_io:
         check_comparable(r1, r2)  # raises the input/output message
-    chk = detect_sample_period_mismatch(r1, r2, rtol=opts.rtol)
     label1, label2 = r1.name or "first model", r2.name or "second model"
     assert r1.sample_period is not None and r2.sample_period is not None
     head = (f"{label2} is sampled at T = {r2.sample_period:g} s but {label1} at "
             f"T = {r1.sample_period:g} s")
+    try:
+        chk = detect_sample_period_mismatch(r1, r2, rtol=opts.rtol)
+    except Exception as exc:  # noqa: BLE001 - the labelled periods differ: that decides
+        reason = _reason(exc)
+        summary = f"{head}; the period ratio under which they would agree was not computed ({reason})"
+        ev = Evidence(
+            key="sample_period", title="Sample periods", metric="labelled periods and the period "
+            "ratio under which the poles and responses agree", value=None, tolerance=opts.rtol,
+            outcome="fail", decisive=True, precision="double", seconds=time.perf_counter() - start,
+            summary=summary, details={"error": reason})
+        return PairComparison(
+            reference=label1, other=label2, verdict="different",
+            explanation=f"{label2} is not the same discrete-time system as {label1}: {summary}.",
+            evidence=(ev,), diagnosis={"sample_period": {"error": reason}},
+            warnings=("the period-ratio explanation could not be computed",), seconds=ev.seconds)
     if chk.outcome == "period_mismatch":
         summary = (f"{head}; they describe the same continuous dynamics if the effective period "
                    f"ratio is {chk.simple_ratio or format(chk.ratio, '.6g')} "

@@ -249,6 +249,19 @@ def test_bandwidth_claim(svc: Service) -> None:
     assert c["bandwidth_rad_s"]["outcome"] == "fails"
 
 
+@pytest.mark.parametrize("name", ["zoh", "tustin", "euler"])
+def test_unknown_discretization_method_is_422_listing_the_accepted_names(svc: Service, name: str) -> None:
+    body = {"models": [demo("conveyor_drive_reference")],
+            "claims": {"discretization": {"method": name}}}
+    r = svc.submit(body)
+    assert r.status_code == 422
+    text = json.dumps(r.json())
+    assert f"got '{name}' but one of these discretization methods was expected" in text
+    for accepted in ("zero-order-hold", "triangle-hold", "bilinear", "matched-pole-zero",
+                     "impulse-invariant"):
+        assert accepted in text
+
+
 def test_discretization_and_sample_period_claims(svc: Service) -> None:
     import scipy.signal
 
@@ -261,18 +274,18 @@ def test_discretization_and_sample_period_claims(svc: Service) -> None:
     ad, bd, cd, dd, _ = scipy.signal.cont2discrete((a, b, c, d), period, method="zoh")
     body = {"reference": ss_doc("plant", a, b, c, d),
             "models": [ss_doc("plant at 1 kHz", ad, bd, cd, dd, period)],
-            "claims": {"sample_period": 1e-3, "discretization": {"method": "zoh"}}}
+            "claims": {"sample_period": 1e-3, "discretization": {"method": "zero-order-hold"}}}
     rec = svc.submit(body).json()
     cl = _claims(rec)
     assert cl["sample_period"]["outcome"] == "holds"
     assert cl["discretization"]["outcome"] == "holds"
-    assert rec["verdict"] == "equivalent"  # the ZOH-discretized reference against the model
-    body["claims"] = {"sample_period": 2e-3, "discretization": {"method": "tustin"}}
+    assert rec["verdict"] == "equivalent"  # the zero-order-hold-discretized reference against the model
+    body["claims"] = {"sample_period": 2e-3, "discretization": {"method": "bilinear"}}
     rec = svc.submit(body).json()
     cl = _claims(rec)
     assert cl["sample_period"]["outcome"] == "fails"
     assert cl["discretization"]["outcome"] == "fails"
-    assert "zoh" in cl["discretization"]["message"]
+    assert "zero-order-hold" in cl["discretization"]["message"]
     # without a discretization claim a continuous reference cannot meet discrete models
     body.pop("claims")
     r = svc.submit(body)

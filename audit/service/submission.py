@@ -55,8 +55,9 @@ from dataclasses import dataclass, field
 from typing import Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
+from ..discretization_methods import DiscretizationMethod, accepted_methods_text, discretization_method
 from ..errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from ..realization import SAMPLE_PERIOD_RTOL, Realization
 
@@ -92,7 +93,6 @@ FORM_RTOL = 1e-9
 BANDWIDTH_BISECTION_RTOL = 1e-12
 MAX_MODELS = 16
 
-_Method = Literal["zoh", "foh", "tustin", "matched", "impulse"]
 
 
 class _Strict(BaseModel):
@@ -102,9 +102,18 @@ class _Strict(BaseModel):
 class DiscretizationClaim(_Strict):
     """"The submitted discrete models are the ``method`` discretization of the reference"."""
 
-    method: _Method = Field(description="Discretization method")
+    method: DiscretizationMethod = Field(
+        description="Discretization method: " + accepted_methods_text())
     prewarp_frequency: float | None = Field(
-        default=None, gt=0, description="Tustin prewarping frequency in rad/s (optional)")
+        default=None, gt=0, description="Prewarp frequency in rad/s of the bilinear method (optional)")
+
+    @field_validator("method", mode="before")
+    @classmethod
+    def _known_method(cls, value: Any) -> Any:
+        try:
+            return discretization_method(value, field="method")
+        except InvalidModelError as exc:  # pydantic reports a ValueError as a 422 detail
+            raise ValueError(str(exc).removeprefix("method: ")) from None
 
 
 class Claims(_Strict):
@@ -146,6 +155,15 @@ class Submission(_Strict):
         default=None, min_length=1, max_length=2000,
         description="Reason for accepting knowingly an unstable or marginal hidden or nearly "
         "hidden mode that the reference lacks; without it such a mode fails the submission")
+    atol: float | None = Field(default=None, ge=0, description="Absolute tolerance on the "
+                               "difference, in the models' gain units (default 0: none)")
+    band_rad_s: list[float] | None = Field(default=None, min_length=2, max_length=2,
+                                           description="Band of interest [low, high] in rad/s: only "
+                                           "the difference inside it decides")
+    channel_rtol: list[str] = Field(default_factory=list, max_length=400,
+                                    description="Per-channel relative tolerances 'OUT:IN=R' or "
+                                    "'OUT=R' (0-based index, signal name of the first compared "
+                                    "model, or *)")
 
 
 class Tolerances(_Strict):
@@ -157,6 +175,9 @@ class Tolerances(_Strict):
     claim_rtol: float
     form_rtol: float = FORM_RTOL
     sample_period_rtol: float = SAMPLE_PERIOD_RTOL
+    atol: float = 0.0
+    band_rad_s: list[float] | None = None
+    channel_rtol: list[str] = Field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -296,7 +317,30 @@ def tolerances_for(sub: Submission) -> Tolerances:
         escalation_seconds=(DEFAULT_ESCALATION_SECONDS if sub.escalation_seconds is None
                             else sub.escalation_seconds),
         claim_rtol=DEFAULT_CLAIM_RTOL if sub.claim_rtol is None else sub.claim_rtol,
+        atol=0.0 if sub.atol is None else sub.atol,
+        band_rad_s=sub.band_rad_s,
+        channel_rtol=list(sub.channel_rtol),
     )
+
+
+def _stated_tolerances(ps: ParsedSubmission, tol: Tolerances, first: Realization) -> dict[str, Any]:
+    """atol, band and channel tolerances as Options fields (names from the first compared
+    model's document); bad values raise InvalidModelError (422)."""
+    from ..band_peak import check_band
+    from ..tolerances import parse_channel_tolerance, resolve_channel_tolerances
+
+    out: dict[str, Any] = {"atol": tol.atol}
+    if tol.band_rad_s is not None:
+        out["band"] = check_band(tol.band_rad_s, field="band_rad_s")
+    if tol.channel_rtol:
+        raw = ps.submission.reference if ps.submission.reference is not None else ps.submission.models[0]
+        names = {k: [str(s.get("name")) for s in raw.get(k) or [] if isinstance(s, dict)] or None
+                 for k in ("inputs", "outputs")}
+        out["channel_rtol"] = resolve_channel_tolerances(
+            [parse_channel_tolerance(t, field="channel_rtol") for t in tol.channel_rtol],
+            n_outputs=first.n_outputs, n_inputs=first.n_inputs, output_names=names["outputs"],
+            input_names=names["inputs"], field="channel_rtol")
+    return out
 
 
 # ------------------------------------------------------------------ bandwidth
@@ -629,7 +673,8 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
     verdict = "not_compared"
     if compared:
         options = Options(rtol=tol.rtol, escalate=tol.escalation_seconds > 0,
-                          escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol)
+                          escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol,
+                          **_stated_tolerances(ps, tol, compared[0]))
         t0 = time.perf_counter()
         pairs = compare_models(compared, options=options)
         verdict = overall_verdict(pairs)
