@@ -54,9 +54,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                        "depends on machine speed; --budget is exactly reproducible)")
     parser.add_argument("--seed", type=whole_number(0), default=0, help="campaign seed (default 0)")
     parser.add_argument("--workers", type=whole_number(1), default=None, metavar="K",
-                        help="parallel worker processes (default: number of CPUs)")
+                        help="worker processes of the local Dask cluster (default: number of "
+                        "CPUs; 1 runs in this process)")
+    parser.add_argument("--scheduler", metavar="tcp://HOST:PORT", default=None,
+                        help="submit the cases to this existing Dask scheduler instead of "
+                        "starting local workers (the report is the same for the same seed)")
     parser.add_argument("--out", default="stress-report", metavar="DIR",
-                        help="output directory (default ./stress-report)")
+                        help="output directory; must be absent or empty (default ./stress-report)")
+    parser.add_argument("--replace", action="store_true",
+                        help="delete a previous campaign's report in --out first (only a folder "
+                        "holding a campaign.json is deleted)")
     parser.add_argument("--shard", type=_shard, default=(0, 1), metavar="i/N",
                         help="run only the systems with index %% N == i (spread a campaign over "
                         "N machines; merge with --merge)")
@@ -113,6 +120,10 @@ def run(args: argparse.Namespace) -> int:
             sys.stdout.write(f"{name}\t{p.description}\n")
         return 0
     out = Path(args.out)
+    problem = _prepare_out(out, args.replace)
+    if problem:
+        sys.stderr.write(f"lti-audit: error: --out: {problem}\n")
+        return 2
     if args.merge:
         reports = []
         for d in args.merge:
@@ -135,7 +146,8 @@ def run(args: argparse.Namespace) -> int:
     workers = args.workers or stress.default_workers()
     result = stress.run_campaign(budget=budget, minutes=args.minutes, seed=args.seed,
                                  workers=workers, shard=args.shard, settings=settings,
-                                 progress=_Progress(args.quiet, args.minutes))
+                                 progress=_Progress(args.quiet, args.minutes),
+                                 scheduler=args.scheduler)
     try:
         paths = stress.write_reports(result, out)
     except FileExistsError as exc:
@@ -146,6 +158,28 @@ def run(args: argparse.Namespace) -> int:
         sys.stderr.write(f"stress: {report['completed_cases']} systems, {report['audits']} audits in "
                          f"{report['seconds']:.1f} s; report {paths['markdown']}\n")
     return 1 if _failures(report) else 0
+
+
+def _prepare_out(out: Path, replace: bool) -> str | None:
+    """Refuse a non-empty output folder (stale counterexamples must not mix with new ones).
+
+    With ``replace``, a folder that holds a previous campaign (a ``campaign.json``) is
+    deleted first; any other non-empty folder is refused. Returns the problem, or None.
+    """
+    import shutil
+
+    if out.exists() and not out.is_dir():
+        return f"{out} exists and is not a folder"
+    if not out.is_dir() or not any(out.iterdir()):
+        return None
+    if not replace:
+        return (f"{out} is not empty; choose a new folder, or add --replace to delete the "
+                "previous campaign's report there")
+    if not (out / "campaign.json").is_file():
+        return (f"{out} is not empty and holds no campaign.json: --replace deletes only a "
+                "previous campaign's report folder")
+    shutil.rmtree(out)
+    return None
 
 
 def _failures(report: dict[str, Any]) -> int:
