@@ -961,6 +961,22 @@ def shrink_counterexamples(records: Sequence[dict[str, Any]], summary: dict[str,
     return out
 
 
+MACHINE_DEPENDENT_KEYS = ("seconds", "systems_per_second", "workers")
+"""Report entries that depend on the machine and the cluster, not on the seed."""
+
+
+def reproducible_part(report: dict[str, Any]) -> dict[str, Any]:
+    """A campaign report without timings and worker count: equal for equal seeds and
+    settings, whatever the number of workers or machines (the property the cluster
+    tests check)."""
+    keep = {k: v for k, v in report.items() if k not in MACHINE_DEPENDENT_KEYS}
+    keep["cases"] = [
+        {**{k: v for k, v in c.items() if k != "seconds"},
+         "results": [{k: v for k, v in r.items() if k != "seconds"} for r in c["results"]]}
+        for c in report["cases"]]
+    return keep
+
+
 def merge_campaigns(reports: Sequence[dict[str, Any]]) -> dict[str, Any]:
     """Merge the JSON reports of the shards of one campaign into one report.
 
@@ -1202,6 +1218,7 @@ __all__ = [
     "plot_envelope",
     "register_pipeline",
     "render_markdown",
+    "reproducible_part",
     "run_campaign",
     "run_case",
     "run_pipeline",
