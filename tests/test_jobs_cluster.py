@@ -105,7 +105,7 @@ class DaskProcesses:
         def executing_keys(dask_worker: Any) -> list[str]:  # runs on each worker (by value)
             return [str(ts.key) for ts in dask_worker.state.executing]
 
-        deadline = time.monotonic() + 30
+        deadline = time.monotonic() + 60
         while time.monotonic() < deadline:
             executing = client.run(executing_keys)
             names = {a: str(w.get("name")) for a, w in client.scheduler_info()["workers"].items()}
@@ -118,7 +118,7 @@ class DaskProcesses:
                     del self.workers[names[addr]]
                     return names[addr]
             time.sleep(0.02)
-        raise AssertionError("no worker was executing a task within 30 s")
+        raise AssertionError("no worker was executing a task within 60 s")
 
     def close(self) -> None:
         for proc in reversed(self.procs):
@@ -149,19 +149,19 @@ def _comparable(report: dict[str, Any]) -> dict[str, Any]:
 
 
 def test_campaign_on_the_cluster_equals_the_single_process_run(cluster: DaskProcesses) -> None:
-    single = stress.run_campaign(budget=6, seed=11, settings=_settings()).as_dict()
+    single = stress.run_campaign(budget=4, seed=11, settings=_settings()).as_dict()
     seen: list[int] = []
-    on_cluster = stress.run_campaign(budget=6, seed=11, settings=_settings(),
+    on_cluster = stress.run_campaign(budget=4, seed=11, settings=_settings(),
                                      scheduler=cluster.address,
                                      progress=lambda done, planned, f: seen.append(done))
     rep = on_cluster.as_dict()
     assert rep["workers"] == 2
     assert _comparable(rep) == _comparable(single)
-    assert seen == list(range(7))  # progress from 0, then once per finished case
+    assert seen == list(range(5))  # progress from 0, then once per finished case
 
 
 def test_killing_a_worker_mid_campaign_loses_no_case(cluster: DaskProcesses) -> None:
-    single = stress.run_campaign(budget=10, seed=12, settings=_settings()).as_dict()
+    single = stress.run_campaign(budget=6, seed=12, settings=_settings()).as_dict()
     cluster.start_worker("doomed")
     cluster.wait_workers(3)
     killed: list[str] = []
@@ -170,14 +170,12 @@ def test_killing_a_worker_mid_campaign_loses_no_case(cluster: DaskProcesses) -> 
             if done == 1 and not killed:
                 killed.append(cluster.kill_busy_worker(watcher))
 
-        rep = stress.run_campaign(budget=10, seed=12, settings=_settings(),
+        rep = stress.run_campaign(budget=6, seed=12, settings=_settings(),
                                   scheduler=cluster.address, progress=kill_once).as_dict()
     assert len(killed) == 1
-    assert [c["index"] for c in rep["cases"]] == list(range(10))
+    assert [c["index"] for c in rep["cases"]] == list(range(6))
     assert _comparable(rep) == _comparable(single)
-    if killed[0] != "doomed":  # keep two workers for the next tests
-        cluster.start_worker(f"{killed[0]}-again")
-    cluster.wait_workers(2)
+    cluster.wait_workers(2)  # two survivors for the next tests
 
 
 # ------------------------------------------------------------------ the service
@@ -244,7 +242,7 @@ def _rows(db_url: str) -> list[tuple[str, str, str | None, int]]:
                 for r in s.scalars(select(Audit).order_by(Audit.created_at))]
 
 
-def _wait_all_done(base: str, token: str, ids: list[str], timeout: float = 90) -> dict[str, Any]:
+def _wait_all_done(base: str, token: str, ids: list[str], timeout: float = 180) -> dict[str, Any]:
     deadline = time.monotonic() + timeout
     out: dict[str, Any] = {}
     with httpx.Client(base_url=base, headers={"Authorization": f"Bearer {token}"},
@@ -270,13 +268,13 @@ def test_service_on_external_cluster_survives_web_restart_and_worker_kill(
     acknowledged: dict[str, str] = {}  # audit id -> body sha256
     try:
         with httpx.Client(base_url=web.base, headers=headers, timeout=30) as client:
-            # larger models first, so that audits are running when the web process dies
-            bodies = [{"models": [_ss_doc(f"shaker table {k}", 60, k),
-                                  _ss_doc(f"shaker table {k} (copy)", 60, k)]}
-                      for k in range(3)]
-            bodies += [{"models": [_demo("conveyor_drive_refactored")],
-                        "reference": _demo("conveyor_drive_reference"), "supplier": f"S{k}"}
-                       for k in range(5)]
+            # larger models last, so that audits are running when the web process dies
+            bodies = [{"models": [_demo("conveyor_drive_refactored")],
+                       "reference": _demo("conveyor_drive_reference"), "supplier": f"S{k}"}
+                      for k in range(5)]
+            bodies += [{"models": [_ss_doc(f"shaker table {k}", 60, k),
+                                   _ss_doc(f"shaker table {k} (copy)", 60, k)]}
+                       for k in range(3)]
             for body in bodies:
                 raw = json.dumps(body).encode()
                 r = client.post("/audits", content=raw)
