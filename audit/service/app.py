@@ -196,7 +196,8 @@ class _ApiError(HTTPException):
 def _responses(*codes: int, explicit_json: bool = False) -> dict[int | str, dict[str, Any]]:
     """OpenAPI entries of the JSON error responses (``explicit_json`` for non-JSON routes)."""
     text = {401: "Missing or invalid API token", 403: "Forbidden for this token",
-            404: "No such audit", 409: "Idempotency-Key reused with a different body",
+            404: "No such audit",
+            409: "Idempotency-Key reused with another body, or the audit is not done",
             413: "Request body too large", 422: "Invalid request, model document or claim",
             429: "This token has its quota of audits in flight (Retry-After)",
             503: "Job queue full or no database connection free (Retry-After)"}
@@ -744,7 +745,7 @@ def create_app(
         return HTMLResponse(_render_page(row, reparse))
 
     @app.post("/audits/{audit_id}/rerun", response_model=RerunResult, tags=["audits"],
-              responses=_responses(401, 403, 404, 422))
+              responses=_responses(401, 403, 404, 409, 422, 503))
     def rerun(audit_id: str, who: Principal = Depends(principal_dep),
               session: Session = Depends(session_dep)) -> dict[str, Any]:
         """Re-run a stored audit from its exact bytes with its stored tolerances.
