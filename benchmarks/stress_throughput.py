@@ -1,20 +1,25 @@
-"""Stress-campaign throughput: systems audited per second per worker, and 1 -> 2 worker scaling.
+"""Stress-campaign throughput against the number of Dask workers: 1, 2 and every CPU.
 
-Runs the same deterministic campaign (same seed, same budget, all pipelines) with 1 and
-with 2 worker processes and prints one table row per worker count.  A "system" is one
-random model pushed through every applicable pipeline (about 20 audits each).  Shrinking
-of failures is switched off (``max_counterexamples=0``) so that the rows measure auditing
-throughput only; worker start-up is included.
+Runs the same deterministic campaign (same seed, same budget, all pipelines) in one
+process (1 worker, no cluster) and on local Dask clusters of 2 and of ``os.cpu_count()``
+worker processes (the same count is run once), or with ``--scheduler`` on an existing
+cluster, and prints one table row per run. A "system" is one random model pushed through
+every applicable pipeline (about 20 audits each). Shrinking of failures is switched off
+(``max_counterexamples=0``) so that the rows measure auditing throughput only; cluster
+start-up is included. Every run's report is checked to equal the single-process one
+(:func:`audit.stress.reproducible_part`).
 
 Usage: python benchmarks/stress_throughput.py [--budget N] [--seed S] [--max-order N]
+       [--scheduler tcp://HOST:PORT]
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import time
 
-from audit.stress import CampaignSettings, run_campaign
+from audit.stress import CampaignSettings, reproducible_part, run_campaign
 
 
 def main() -> None:
@@ -22,24 +27,38 @@ def main() -> None:
     parser.add_argument("--budget", type=int, default=16)
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--max-order", type=int, default=8)
+    parser.add_argument("--scheduler", default=None,
+                        help="also run on this existing Dask scheduler")
     args = parser.parse_args()
     settings = CampaignSettings(max_order=args.max_order, max_counterexamples=0)
+    runs: list[tuple[str, int, str | None]] = [("in process", 1, None)]
+    for n in sorted({2, os.cpu_count() or 1}):
+        if n > 1:
+            runs.append((f"local cluster, {n} processes", n, None))
+    if args.scheduler:
+        runs.append((f"scheduler {args.scheduler}", 0, args.scheduler))
     rows = []
-    for workers in (1, 2):
+    reference = None
+    for label, workers, scheduler in runs:
         start = time.perf_counter()
-        result = run_campaign(budget=args.budget, seed=args.seed, workers=workers, settings=settings)
+        result = run_campaign(budget=args.budget, seed=args.seed, workers=max(workers, 1),
+                              settings=settings, scheduler=scheduler)
         seconds = time.perf_counter() - start
+        rep = reproducible_part(result.as_dict())
+        reference = reference or rep
         audits = sum(v["audited"] for v in result.summary.values())
-        rows.append((workers, len(result.records), audits, seconds))
-    base = rows[0][1] / rows[0][3]
+        rows.append((label, result.workers, len(result.records), audits, seconds, rep == reference))
+    base = rows[0][2] / rows[0][4]
     print(f"stress throughput (seed {args.seed}, budget {args.budget}, orders 1..{args.max_order}, "
-          "all pipelines, no shrinking)")
-    print("| workers | systems | audits | seconds | systems/s | systems/s per worker | audits/s | speed-up |")
-    print("|---|---|---|---|---|---|---|---|")
-    for workers, systems, audits, seconds in rows:
+          f"all pipelines, no shrinking, {os.cpu_count()} CPUs)")
+    print("| run | workers | systems | audits | seconds | systems/s | systems/s per worker "
+          "| audits/s | speed-up | same report |")
+    print("|---|---|---|---|---|---|---|---|---|---|")
+    for label, workers, systems, audits, seconds, same in rows:
         rate = systems / seconds
-        print(f"| {workers} | {systems} | {audits} | {seconds:.1f} | {rate:.3f} | {rate / workers:.3f} "
-              f"| {audits / seconds:.1f} | {rate / base:.2f}x |")
+        print(f"| {label} | {workers} | {systems} | {audits} | {seconds:.1f} | {rate:.3f} "
+              f"| {rate / workers:.3f} | {audits / seconds:.1f} | {rate / base:.2f}x "
+              f"| {'yes' if same else 'NO'} |")
 
 
 if __name__ == "__main__":
