@@ -183,7 +183,7 @@ def test_start_up_requeues_queued_and_running_jobs(tmp_path: Path) -> None:
     ids = [_post(stopped, PAIR).json()["id"] for _ in range(3)]
     _set(stopped, ids[0], status="running", attempts=1)  # as if it died mid-audit
     stopped.close()
-    restarted = Service(url)
+    restarted = Service(stopped.url)
     try:
         recs = [wait_done(restarted.client, i, restarted.auth(stopped.team)).json() for i in ids]
     finally:
@@ -245,3 +245,47 @@ def test_list_page_and_record_show_the_job_state(make: Any) -> None:
     assert "refresh" not in page
     r = s.client.post(f"/audits/{audit_id}/rerun", headers=s.auth(s.team))
     assert r.status_code == 409 and r.json()["error"] == "not_done"
+
+
+# ------------------------------------------------------------------ PostgreSQL
+def test_postgresql_jobs_idempotency_race_and_status() -> None:
+    import os
+    import threading
+
+    url = os.environ.get("LTI_AUDIT_TEST_POSTGRES_URL")
+    if not url:
+        pytest.skip("PostgreSQL not tested: set LTI_AUDIT_TEST_POSTGRES_URL to a reachable "
+                    "database URL (e.g. postgresql+psycopg://user@localhost/lti_audit_test)")
+    pytest.importorskip("psycopg")
+    import httpx
+
+    from .test_service import running_server
+
+    s = Service(url)
+    try:
+        key = f"pg-race-{os.getpid()}-{id(s)}"
+        ids: list[str] = []
+        codes: list[int] = []
+        lock = threading.Lock()
+        with running_server(s.app) as base:
+            def post() -> None:
+                with httpx.Client(base_url=base, timeout=60) as client:
+                    r = client.post("/audits", json=PAIR, headers={
+                        **s.auth(s.team), "Idempotency-Key": key})
+                with lock:
+                    codes.append(r.status_code)
+                    if r.status_code == 202:
+                        ids.append(r.json()["id"])
+
+            threads = [threading.Thread(target=post) for _ in range(6)]
+            for t in threads:
+                t.start()
+            for t in threads:
+                t.join(timeout=60)
+        assert codes == [202] * 6 and len(set(ids)) == 1  # one audit for six racing posts
+        rec = wait_done(s.client, ids[0], s.auth(s.team)).json()
+        assert rec["status"] == "done" and rec["verdict"] == "equivalent"
+        with s.sessions() as session:
+            assert session.query(Audit).filter(Audit.idempotency_key == key).count() == 1
+    finally:
+        s.close()
