@@ -56,10 +56,10 @@ from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.routing import Match
 from pydantic import BaseModel, Field
-from sqlalchemy import func, select
+from sqlalchemy import Text, cast, func, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.exc import TimeoutError as PoolTimeoutError
-from sqlalchemy.orm import Session, selectinload
+from sqlalchemy.orm import Session, defer, selectinload
 
 from ..errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from .db import ACTIVE_STATES, Audit, AuditDocument, open_database, utc_now
@@ -69,6 +69,7 @@ from .jobs import (
     DEFAULT_JOB_SECONDS,
     DEFAULT_QUEUE_SIZE,
     DEFAULT_TOKEN_QUOTA,
+    DEFAULT_WORKER_NICENESS,
     JobDispatcher,
     JobSettings,
     compute_audit,
@@ -380,9 +381,14 @@ def create_app(
                                      max_overflow=db_max_overflow, pool_timeout=db_pool_timeout)
     secret = link_secret if link_secret is not None else secrets.token_bytes(32)
     version = package_version()
+    # worker processes (not threads of this process, as with an in-process cluster) may
+    # lower their priority and end themselves after a runaway audit
+    processes = (local_processes if scheduler is None
+                 else not scheduler.startswith("inproc://"))
     job_settings = JobSettings(database_url=database_url, max_order=max_order,
                                time_budget=float(job_seconds), max_attempts=job_attempts,
-                               hard_stop=scheduler is not None or local_processes)
+                               hard_stop=processes,
+                               worker_niceness=DEFAULT_WORKER_NICENESS if processes else 0)
     dispatcher = JobDispatcher(sessions, job_settings, scheduler=scheduler,
                                local_workers=local_workers, local_processes=local_processes)
     if start_jobs:
@@ -486,8 +492,14 @@ def create_app(
                             f"{unknown[0]}: unknown query parameter; expected one of "
                             f"{', '.join(sorted(allowed)) or '(none)'}", unknown[0])
 
-    def load_audit(session: Session, audit_id: str, who: Principal) -> Audit:
-        row = session.get(Audit, audit_id, options=[selectinload(Audit.documents)])
+    def load_audit(session: Session, audit_id: str, who: Principal, *,
+                   with_body: bool = True, with_report: bool = True) -> Audit:
+        options: list[Any] = [selectinload(Audit.documents)]
+        if not with_body:
+            options.append(defer(Audit.body))
+        if not with_report:
+            options.append(defer(Audit.report))
+        row = session.get(Audit, audit_id, options=options)
         if row is None:
             raise _ApiError(404, "not_found", f"no audit with id {audit_id!r}", "audit_id")
         if not who.may_see(row.supplier):
@@ -520,12 +532,13 @@ def create_app(
         tok = session.get(ApiToken, row.submitted_by)
         return None if tok is None else tok.holder
 
-    def record(session: Session, row: Audit) -> dict[str, Any]:
+    def record(session: Session, row: Audit, with_report: bool = True) -> dict[str, Any]:
         data = summary(row, holder_of(session, row))
         data["tolerances"] = row.tolerances
         data["documents"] = [{"role": d.role, "position": d.position, "name": d.name,
                               "sha256": d.sha256} for d in row.documents]
-        data["report"] = row.report
+        if with_report:
+            data["report"] = row.report
         return data
 
     def reparse(row: Audit) -> tuple[ParsedSubmission, Tolerances]:
@@ -656,14 +669,16 @@ def create_app(
         who: Principal = Depends(principal_dep),
         session: Session = Depends(session_dep),
         _: None = Depends(known_query),
-    ) -> dict[str, Any]:
+    ) -> Any:
         """List audits, newest first, filtered by model name, supplier, verdict, status, date."""
         if who.role == "supplier":
             if supplier is not None and supplier != who.supplier:
                 raise _ApiError(403, "forbidden", "supplier: supplier tokens see only their "
                                 "own audits", "supplier")
             supplier = who.supplier
-        q = select(Audit)
+        # summary columns only: the body and the report can be megabytes per row
+        q = select(Audit).options(defer(Audit.body), defer(Audit.report),
+                                  defer(Audit.tolerances))
         if supplier is not None:
             q = q.where(Audit.supplier == supplier)
         if verdict is not None:
@@ -681,15 +696,22 @@ def create_app(
         total = session.scalar(select(func.count()).select_from(q.subquery())) or 0
         rows = session.scalars(q.order_by(Audit.created_at.desc(), Audit.id)
                                .limit(limit).offset(offset)).all()
-        return {"total": int(total), "limit": limit, "offset": offset,
-                "items": [summary(r, holder_of(session, r)) for r in rows]}
+        return JSONResponse({"total": int(total), "limit": limit, "offset": offset,
+                             "items": [summary(r, holder_of(session, r)) for r in rows]})
 
     @app.get("/audits/{audit_id}", response_model=AuditRecord, tags=["audits"],
              responses=_responses(401, 403, 404, 422))
     def get_audit(audit_id: str, who: Principal = Depends(principal_dep),
-                  session: Session = Depends(session_dep)) -> dict[str, Any]:
-        """One stored audit: report, documents with their hashes, tolerances, version."""
-        return record(session, load_audit(session, audit_id, who))
+                  session: Session = Depends(session_dep)) -> Any:
+        """One stored audit: status, report, documents with their hashes, tolerances, version."""
+        # the stored report (up to megabytes of JSON) is spliced in as the database holds
+        # it: no parse, validation and re-serialization pass per read
+        row = load_audit(session, audit_id, who, with_body=False, with_report=False)
+        data = record(session, row, with_report=False)
+        raw = session.scalar(select(cast(Audit.report, Text)).where(Audit.id == audit_id))
+        head = json.dumps(data, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+        text = f'{head[:-1]},"report":{raw if raw else "null"}}}'
+        return Response(content=text.encode("utf-8"), media_type="application/json")
 
     @app.get("/audits/{audit_id}/body", tags=["audits"], responses={
         200: {"content": {"application/json": {}}, "description": "The exact request body"},

@@ -21,6 +21,10 @@ and each claim increments ``attempts`` so that the retries are bounded. A job cl
 twice (a re-sent ``running`` job whose first task was still alive) is computed twice but
 stored once: only a task that finds the job still ``running`` writes its result.
 
+Priority: on worker processes (a local cluster of processes or an external cluster) the
+task raises its process's niceness once by ``DEFAULT_WORKER_NICENESS``, so that audits
+yield the CPU to the web process on a shared machine and reads stay fast.
+
 Time budget: :func:`audit.service.submission.run_audit` checks the budget between
 model pairs and caps the extended-precision budget by the time left. As a backstop the
 audit runs in a thread of the task; if it has not returned ``HARD_STOP_FACTOR`` times
@@ -70,6 +74,9 @@ DEFAULT_JOB_SECONDS = 600.0
 DEFAULT_JOB_ATTEMPTS = 3
 """Claims of a job by worker tasks before a job whose workers keep dying is ``failed``."""
 
+DEFAULT_WORKER_NICENESS = 10
+"""Niceness added to a worker process by its first audit job (processes only)."""
+
 HARD_STOP_FACTOR = 1.5
 HARD_STOP_GRACE = 10.0
 
@@ -83,6 +90,7 @@ class JobSettings:
     time_budget: float = DEFAULT_JOB_SECONDS
     max_attempts: int = DEFAULT_JOB_ATTEMPTS
     hard_stop: bool = False
+    worker_niceness: int = 0
 
 
 def error_code(exc: BaseException) -> str:
@@ -122,6 +130,19 @@ def compute_audit(body: bytes, tolerances: dict[str, Any], max_order: int,
 
 _SESSIONS: dict[str, Any] = {}
 _SESSIONS_LOCK = threading.Lock()
+_NICED = False
+
+
+def _lower_priority(niceness: int) -> None:
+    """Raise this worker process's niceness once (audits yield the CPU to the web process)."""
+    global _NICED
+    with _SESSIONS_LOCK:
+        if niceness > 0 and not _NICED and hasattr(os, "nice"):
+            try:
+                os.nice(niceness)
+            except OSError:  # pragma: no cover - not permitted here
+                pass
+            _NICED = True
 
 
 def _sessions(url: str) -> Any:
@@ -155,6 +176,7 @@ def execute_job(audit_id: str, settings: JobSettings) -> str:
     """
     from ..report import CAUTION, package_version
 
+    _lower_priority(settings.worker_niceness)
     sessions = _sessions(settings.database_url)
     with sessions.begin() as s:
         row = s.get(Audit, audit_id, with_for_update=True)
