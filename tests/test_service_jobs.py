@@ -63,9 +63,9 @@ def test_sizes_are_checked_on_the_document_before_any_conversion(
     s = make(start_jobs=False)
     # 2000 poles in one zeros-poles-gain channel (the 44 KB document)
     poles = [[-1.0 - k * 1e-3, 0.0] for k in range(2000)]
-    zpk = {"lti_model": 1, "name": "long delay line", "sample_period": None,
+    factored = {"lti_model": 1, "name": "long delay line", "sample_period": None,
            "zeros_poles_gain": {"zeros": [[[]]], "poles": [[poles]], "gain": [[1.0]]}}
-    r = _post(s, {"models": [zpk]})
+    r = _post(s, {"models": [factored]})
     assert r.status_code == 422 and r.json()["field"] == "models[0]"
     assert "order 2000" in r.json()["message"] and "max_order=200" in r.json()["message"]
     # 1/(s^2000 + 1): the denominator degree counts

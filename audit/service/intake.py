@@ -50,7 +50,7 @@ def model_size(doc: Any) -> tuple[int, int, int]:
     """
     if not isinstance(doc, dict):
         return 0, 0, 0
-    ss, tf, zpk = doc.get("state_space"), doc.get("transfer_function"), doc.get("zeros_poles_gain")
+    ss, tf, factored = doc.get("state_space"), doc.get("transfer_function"), doc.get("zeros_poles_gain")
     if isinstance(ss, dict):
         d = ss.get("d")
         return _rows(ss.get("a")), _rows(d), _cols(d)
@@ -58,13 +58,13 @@ def model_size(doc: Any) -> tuple[int, int, int]:
         den = tf.get("denominator")
         order = sum(max(len(ch) - 1, 0) for ch in _channels(den) if isinstance(ch, list))
         return order, _rows(den), _cols(den)
-    if isinstance(zpk, dict):
-        poles, zeros = _channels(zpk.get("poles")), _channels(zpk.get("zeros"))
+    if isinstance(factored, dict):
+        poles, zeros = _channels(factored.get("poles")), _channels(factored.get("zeros"))
         order = 0
         for k, p in enumerate(poles):
             z = zeros[k] if k < len(zeros) else []
             order += max(len(p) if isinstance(p, list) else 0, len(z) if isinstance(z, list) else 0)
-        return order, _rows(zpk.get("gain")), _cols(zpk.get("gain"))
+        return order, _rows(factored.get("gain")), _cols(factored.get("gain"))
     return 0, 0, 0
 
 
