@@ -51,7 +51,6 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
             rec = wait_done(client, rec.json()["id"], {})
             assert rec.json()["status"] == "done", rec.text
             link = client.post(f"/audits/{rec.json()['id']}/view-link").json()["url"]
-        app.state.dispatcher.close()
         profile = tempfile.mkdtemp(prefix="lti-audit-chromium-")
         try:
             proc = subprocess.run(
@@ -62,6 +61,7 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
                 capture_output=True, text=True, timeout=90)
         finally:
             shutil.rmtree(profile, ignore_errors=True)
+            app.state.dispatcher.close()
     dom = proc.stdout
     assert proc.returncode == 0, proc.stderr[-2000:]
     for plot in ("plot-bode-magnitude", "plot-bode-phase", "plot-pole-zero", "plot-markov"):

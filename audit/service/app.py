@@ -541,11 +541,6 @@ def create_app(
             data["report"] = row.report
         return data
 
-    def reparse(row: Audit) -> tuple[ParsedSubmission, Tolerances]:
-        body = json.loads(row.body.decode("utf-8"))
-        return (parse_submission(body, max_order=max(max_order, 2000)),
-                Tolerances.model_validate(row.tolerances))
-
     # ------------------------------------------------------------ routes
     @app.get("/health", response_model=Health, tags=["service"])
     def health() -> dict[str, Any]:
@@ -739,7 +734,7 @@ def create_app(
                 .replace(tzinfo=None).isoformat() + "Z"}
 
     @app.get("/audits/{audit_id}/report.html", response_class=HTMLResponse, tags=["audits"],
-             responses=_responses(401, 403, 404, 422, explicit_json=True))
+             responses=_responses(401, 403, 404, 422, 503, explicit_json=True))
     def report_page(
         audit_id: str,
         expires: int | None = Query(default=None, ge=0, le=2**62),
@@ -764,7 +759,19 @@ def create_app(
                 raise _ApiError(404, "not_found", f"no audit with id {audit_id!r}", "audit_id")
         if row.status != "done":
             return HTMLResponse(_state_page(row))
-        return HTMLResponse(_render_page(row, reparse))
+        # the page converts the documents and computes plots: on the cluster, with no
+        # database connection held, so that a large audit's page never slows other requests
+        fields = {"id": row.id, "report": row.report, "body": bytes(row.body),
+                  "tolerances": row.tolerances}
+        session.close()
+        try:
+            page = dispatcher.run_now(_page_task, fields, max_order,
+                                      timeout=float(job_seconds) + 60.0)
+        except (TimeoutError, RuntimeError) as exc:
+            raise _ApiError(503, "busy", f"the report page could not be drawn now: {exc}; "
+                            f"retry after {RETRY_AFTER_SECONDS} s", None,
+                            {"Retry-After": str(RETRY_AFTER_SECONDS)}) from None
+        return HTMLResponse(page)
 
     @app.post("/audits/{audit_id}/rerun", response_model=RerunResult, tags=["audits"],
               responses=_responses(401, 403, 404, 409, 422, 503))
@@ -843,6 +850,21 @@ def _state_page(row: Audit) -> str:
 def _document_row(audit_id: str, d: dict[str, Any]) -> AuditDocument:
     return AuditDocument(audit_id=audit_id, position=d["position"], role=d["role"],
                          name=d["name"], sha256=d["sha256"])
+
+
+def _page_task(fields: dict[str, Any], max_order: int) -> str:
+    """Draw a done audit's report page (a Dask task; ``fields``: id, report, body,
+    tolerances of the stored audit)."""
+    import types
+
+    row = types.SimpleNamespace(**fields)
+
+    def reparse(r: Any) -> tuple[ParsedSubmission, Tolerances]:
+        body = json.loads(r.body.decode("utf-8"))
+        return (parse_submission(body, max_order=max(max_order, 2000)),
+                Tolerances.model_validate(r.tolerances))
+
+    return _render_page(row, reparse)  # type: ignore[arg-type]
 
 
 def _render_page(row: Audit, reparse: Any) -> str:
