@@ -289,3 +289,30 @@ def test_postgresql_jobs_idempotency_race_and_status() -> None:
             assert session.query(Audit).filter(Audit.idempotency_key == key).count() == 1
     finally:
         s.close()
+
+
+def test_a_computation_that_overruns_is_abandoned_and_stored_inconclusive(
+        make: Any, monkeypatch: pytest.MonkeyPatch) -> None:
+    import threading
+
+    import audit.service.jobs as jobs
+
+    release = threading.Event()
+
+    def stuck(*args: Any, **kwargs: Any) -> Any:  # a computation that ignores its budget
+        release.wait(30)
+        raise RuntimeError("released")
+
+    monkeypatch.setattr(jobs, "compute_audit", stuck)
+    s = make(start_jobs=False, job_seconds=0.1)
+    audit_id = _post(s, PAIR).json()["id"]
+    settings = jobs.JobSettings(s.url, 200, time_budget=0.1, stop_grace=0.2, hard_stop=False)
+    try:
+        assert jobs.execute_job(audit_id, settings) == "done"
+    finally:
+        release.set()
+    rec = s.client.get(f"/audits/{audit_id}", headers=s.auth(s.team)).json()
+    assert rec["status"] == "done" and rec["verdict"] == "inconclusive"
+    assert rec["report"]["time_budget"]["exceeded"] is True
+    assert "did not return within 0.35 s" in rec["report"]["time_budget"]["reason"]
+    assert rec["report"]["caution"].startswith("Caution:")

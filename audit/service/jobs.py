@@ -79,6 +79,8 @@ DEFAULT_WORKER_NICENESS = 10
 
 HARD_STOP_FACTOR = 1.5
 HARD_STOP_GRACE = 10.0
+"""A computation still running ``HARD_STOP_FACTOR * budget + HARD_STOP_GRACE`` seconds
+after its start is abandoned (see the module docstring)."""
 
 
 @dataclass(frozen=True)
@@ -91,6 +93,7 @@ class JobSettings:
     max_attempts: int = DEFAULT_JOB_ATTEMPTS
     hard_stop: bool = False
     worker_niceness: int = 0
+    stop_grace: float = HARD_STOP_GRACE
 
 
 def error_code(exc: BaseException) -> str:
@@ -207,11 +210,11 @@ def execute_job(audit_id: str, settings: JobSettings) -> str:
 
     thread = threading.Thread(target=work, name=f"lti-audit audit {audit_id}", daemon=True)
     thread.start()
-    thread.join(HARD_STOP_FACTOR * budget + HARD_STOP_GRACE)
+    limit = HARD_STOP_FACTOR * budget + settings.stop_grace
+    thread.join(limit)
     if thread.is_alive():
         reason = (f"time budget of {budget:g} s exceeded: the computation did not return "
-                  f"within {HARD_STOP_FACTOR * budget + HARD_STOP_GRACE:g} s and was stopped; "
-                  "the audit is inconclusive")
+                  f"within {limit:g} s and was stopped; the audit is inconclusive")
         report = {"report": "audit", "lti_audit_version": package_version(),
                   "verdict": "inconclusive", "claims_outcome": "unclear", "summary": reason,
                   "tolerances": tolerances, "comparison": None, "claims": [],
