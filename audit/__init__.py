@@ -30,6 +30,7 @@ _EXPORTS: dict[str, str] = {
     "Realization": "audit.realization",
     "difference_system": "audit.realization",
     "similarity_transformed": "audit.realization",
+    "realization_from_object": "audit.interop",
     "realization_from_transfer_function": "audit.conversions",
     "realization_from_zeros_poles_gain": "audit.conversions",
     "transfer_function_from_realization": "audit.conversions",

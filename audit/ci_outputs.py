@@ -12,8 +12,12 @@ model files (:mod:`audit.gitbase`) of one run. Renderers:
 * :func:`render_markdown` -- a merge-request comment: a table (file/claim, verdict, peak
   relative difference, note), the largest discrepancies, and the caution line.
 
-:func:`write_output` writes a report file atomically (temporary file in the same
-directory, then ``os.replace``) and refuses to overwrite a model file or the manifest.
+:func:`write_output` writes a report file under the tool's output rule
+(:mod:`audit.safe_output`: atomic, never through a link, never over an existing file
+without ``--overwrite``, never over a model file or the manifest). Names, labels and
+notes come from user documents: each renderer makes them plain text for its format
+(:func:`audit.safe_output.markdown_text`, :func:`~audit.safe_output.xml_text`,
+:func:`~audit.safe_output.terminal_text`).
 
 Exit statuses (DESIGN.md): 2 when any claim or file could not be evaluated (missing or
 invalid model: invalid input), else 1 when any claim fails or any file's behaviour
@@ -24,8 +28,6 @@ method is implemented here.
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 import textwrap
 import xml.etree.ElementTree as ET
 from collections.abc import Iterable
@@ -33,13 +35,22 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
 
-from .errors import AuditError
 from .gitbase import FileChange
 from .manifest import ClaimResult
+from .safe_output import (
+    OutputRefusedError,
+    check_new_output,
+    markdown_code,
+    markdown_text,
+    terminal_text,
+    write_output_file,
+    xml_text,
+)
 
 __all__ = [
     "CheckRun",
     "OutputRefusedError",
+    "check_report_target",
     "diagnosis_lines",
     "render_check_json",
     "render_check_text",
@@ -59,10 +70,6 @@ _CHANGE_CATEGORY: dict[str, Category] = {
 _EXIT = {"ok": 0, "fail": 1, "invalid": 2, "inconclusive": 3}
 #: Entries listed under "largest discrepancies" in the Markdown summary.
 LARGEST_DISCREPANCIES = 5
-
-
-class OutputRefusedError(AuditError, ValueError):
-    """A report file would overwrite a model file or the manifest (usage error, exit 2)."""
 
 
 @dataclass(frozen=True)
@@ -265,6 +272,10 @@ def diagnosis_lines(diag: dict[str, Any], *, short: bool = False) -> list[str]:
         lines.append(str(diag["permutation"].get("sentence", "")))
     if "constant_scale" in diag:
         lines.append(str(diag["constant_scale"].get("sentence", "")))
+    if "reversed_coefficients" in diag:
+        lines.append(str(diag["reversed_coefficients"].get("sentence", "")))
+    if "in_db_and_degrees" in diag:
+        lines.append("in dB and degrees: " + str(diag["in_db_and_degrees"].get("sentence", "")))
     moved = diag.get("moved_poles") or []
     for mv in moved[:3]:
         lines.append(f"pole moved: {_point(mv.get('first'))} -> {_point(mv.get('second'))}")
@@ -288,7 +299,7 @@ def diagnosis_lines(diag: dict[str, Any], *, short: bool = False) -> list[str]:
 
 def _point(v: Any) -> str:
     if isinstance(v, (list, tuple)) and len(v) == 2:
-        re_, im = float(v[0]), float(v[1])
+        re_, im = float(v[0]) + 0.0, float(v[1]) + 0.0  # + 0.0: no "-0"
         if im == 0.0:
             return f"{re_:.6g}"
         return f"{re_:.6g}{'+' if im >= 0 else '-'}{abs(im):.6g}j"
@@ -349,7 +360,7 @@ def render_check_text(run: CheckRun) -> str:
     lines.append("")
     lines.append(_wrap(run.summary(), ""))
     lines.append(CAUTION)
-    return "\n".join(lines) + "\n"
+    return terminal_text("\n".join(lines) + "\n")  # names from documents are plain text
 
 
 def _wrap(text: str, indent: str, width: int = 100) -> str:
@@ -379,8 +390,11 @@ def render_junit_xml(run: CheckRun) -> str:
     ------
     None
     """
+    from .report import CAUTION
+
     rows = _rows(run)
     root = ET.Element("testsuites", name="lti-audit check")
+    root.append(ET.Comment(" " + CAUTION.replace("--", "- -") + " "))
     suites = []
     if run.manifest is not None or run.claims:
         suites.append((f"claims ({run.manifest or 'manifest'})", "lti-audit.claims", "claim"))
@@ -393,20 +407,22 @@ def render_junit_xml(run: CheckRun) -> str:
         fails = sum(r.category in ("fail", "inconclusive") for r in group)
         errors = sum(r.category == "error" for r in group)
         t = sum(r.seconds for r in group)
-        suite = ET.SubElement(root, "testsuite", name=name, tests=str(len(group)),
+        suite = ET.SubElement(root, "testsuite", name=xml_text(name), tests=str(len(group)),
                               failures=str(fails), errors=str(errors), skipped="0",
                               time=f"{t:.3f}")
+        # the caution travels with the verdicts (CI systems show suite properties)
+        props = ET.SubElement(suite, "properties")
+        ET.SubElement(props, "property", name="lti-audit.caution", value=CAUTION)
         for r in group:
-            case = ET.SubElement(suite, "testcase", classname=classname, name=r.label,
-                                 time=f"{r.seconds:.3f}")
-            body = "\n".join([r.explanation, *r.diagnosis, *r.warnings])
+            case = ET.SubElement(suite, "testcase", classname=classname,
+                                 name=xml_text(r.label), time=f"{r.seconds:.3f}")
+            body = xml_text("\n".join([r.explanation, *r.diagnosis, *r.warnings]))
+            message = xml_text(_first_sentence(r.explanation, 300))
             if r.category in ("fail", "inconclusive"):
-                el = ET.SubElement(case, "failure", message=_first_sentence(r.explanation, 300),
-                                   type=r.verdict)
+                el = ET.SubElement(case, "failure", message=message, type=r.verdict)
                 el.text = body
             elif r.category == "error":
-                el = ET.SubElement(case, "error", message=_first_sentence(r.explanation, 300),
-                                   type=r.verdict)
+                el = ET.SubElement(case, "error", message=message, type=r.verdict)
                 el.text = body
             else:
                 out = ET.SubElement(case, "system-out")
@@ -423,7 +439,8 @@ def render_junit_xml(run: CheckRun) -> str:
 
 
 def _md(text: str) -> str:
-    return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+    # Everything shown comes from documents or embeds their names: literal text only.
+    return markdown_text(text)
 
 
 def render_markdown(run: CheckRun) -> str:
@@ -444,9 +461,9 @@ def render_markdown(run: CheckRun) -> str:
         lines.append("| file / claim | verdict | peak relative difference | note |")
         lines.append("|---|---|---|---|")
         for r in rows:
-            label = f"`{r.label}`" if r.kind == "file" else r.label
+            label = markdown_code(r.label) if r.kind == "file" else _md(r.label)
             m = mark[r.category]
-            lines.append(f"| {_md(label)} | {m}{r.verdict}{m} | {_num(r.peak)} | {_md(r.note)} |")
+            lines.append(f"| {label} | {m}{r.verdict}{m} | {_num(r.peak)} | {_md(r.note)} |")
         lines.append("")
     ranked = sorted((r for r in rows if r.peak is not None), key=lambda r: -float(r.peak or 0.0))
     lines.append("### Largest discrepancies")
@@ -465,7 +482,7 @@ def render_markdown(run: CheckRun) -> str:
                 lines.append(f"   - {_md(w)}")
     if run.skipped_files:
         lines += ["", "Changed files skipped (not model documents): "
-                  + ", ".join(f"`{_md(p)}`" for p in run.skipped_files)]
+                  + ", ".join(markdown_code(p) for p in run.skipped_files)]
     lines += ["", f"> {CAUTION}", ""]
     return "\n".join(lines)
 
@@ -481,12 +498,28 @@ def _looks_like_model_file(path: Path) -> bool:
     return "lti_model" in head or "[[claim]]" in head
 
 
-def write_output(path: str | Path, text: str, *, protected: Iterable[str | Path] = ()) -> Path:
-    """Write a report file atomically.
+def check_report_target(path: str | Path, *, overwrite: bool = False) -> Path:
+    """Refuse a report path before any audit runs (see :func:`write_output`).
 
-    The text goes to a temporary file in the target directory (created if needed),
-    which then replaces the target with ``os.replace`` -- readers never see a partial
-    report.
+    Raises
+    ------
+    OutputRefusedError
+    """
+    target = Path(path)
+    if target.is_file() and not target.is_symlink() and _looks_like_model_file(target):
+        raise OutputRefusedError(f"{path}: exists and looks like a model document or manifest; "
+                                 "refusing to overwrite it with a report")
+    return check_new_output(target, overwrite=overwrite, create_parents=True)
+
+
+def write_output(path: str | Path, text: str, *, protected: Iterable[str | Path] = (),
+                 overwrite: bool = False) -> Path:
+    """Write a report file under the tool's output rule (:mod:`audit.safe_output`).
+
+    The file appears atomically; a missing folder is created; an existing file is
+    replaced only with ``overwrite`` (``check --overwrite``), never through a symbolic
+    link, and never when it is an input of the run or looks like a model document or
+    manifest.
 
     Parameters
     ----------
@@ -496,8 +529,9 @@ def write_output(path: str | Path, text: str, *, protected: Iterable[str | Path]
         UTF-8 content.
     protected : iterable of path, keyword-only
         Files that must never be overwritten (the manifest and every model file of the
-        run). An existing file that is a model document (``.npz``, or text containing
-        ``lti_model``) or a manifest is refused too.
+        run).
+    overwrite : bool, keyword-only
+        Replace an existing report file.
 
     Returns
     -------
@@ -507,33 +541,9 @@ def write_output(path: str | Path, text: str, *, protected: Iterable[str | Path]
     Raises
     ------
     OutputRefusedError
-        The target is protected, looks like a model file, or is a directory.
-    OSError
-        The directory cannot be created or written.
+        The target is protected, exists (without ``overwrite``), looks like a model file,
+        is a link or a directory, or cannot be written.
     """
-    target = Path(path)
-    resolved = target.resolve()
-    guarded = {Path(p).resolve() for p in protected}
-    if resolved in guarded:
-        raise OutputRefusedError(f"{path}: refusing to overwrite a model file or the manifest "
-                                 "with a report; choose another output path")
-    if target.is_dir():
-        raise OutputRefusedError(f"{path}: is a directory; expected a report file path")
-    if target.exists() and _looks_like_model_file(target):
-        raise OutputRefusedError(f"{path}: exists and looks like a model document or manifest; "
-                                 "refusing to overwrite it with a report")
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, target)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    return target
+    check_report_target(path, overwrite=overwrite)
+    return write_output_file(path, text, overwrite=overwrite, create_parents=True,
+                             protected=protected)

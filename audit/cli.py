@@ -97,7 +97,9 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _inspect(args)
         return int(args._run(args))
     except AuditError as exc:
-        sys.stderr.write(f"lti-audit: error: {exc}\n")
+        from .safe_output import terminal_text
+
+        sys.stderr.write(terminal_text(f"lti-audit: error: {exc}\n"))
         return EXIT_INVALID
     except KeyboardInterrupt:  # pragma: no cover
         sys.stderr.write("lti-audit: interrupted\n")
@@ -117,18 +119,24 @@ def _compare(args: argparse.Namespace) -> int:
     from .errors import IncompatibleModelsError
     from .loading import load_model_document, realization_from_document
     from .report import compare_report, render_compare_text, render_json, signal_labels
+    from .safe_output import terminal_text
     from .verdict import Options, overall_verdict
 
     if len(args.models) < 2:
         sys.stderr.write("lti-audit: error: compare needs at least two models (got 1)\n")
         return EXIT_INVALID
+    if args.prewarp is not None and not _is_bilinear(args.discretization):
+        sys.stderr.write("lti-audit: error: --prewarp applies only to the bilinear (Tustin) "
+                         "discretization; give --discretization with the bilinear method, or "
+                         f"drop --prewarp (got --discretization {args.discretization})\n")
+        return EXIT_INVALID
     if args.format == "html" and not args.output:
         sys.stderr.write("lti-audit: error: --format html needs -o FILE\n")
         return EXIT_INVALID
-    if args.output and os.path.exists(args.output):
-        sys.stderr.write(f"lti-audit: error: {args.output}: exists already; lti-audit never "
-                         "overwrites a file\n")
-        return EXIT_INVALID
+    if args.output:
+        from .safe_output import check_new_output
+
+        check_new_output(args.output, flag="")  # the output rule, checked before any work
     start = time.perf_counter()
     docs = [load_model_document(path) for path in args.models]
     models = [realization_from_document(doc).with_name(doc.name) for doc in docs]
@@ -150,38 +158,39 @@ def _compare(args: argparse.Namespace) -> int:
     if args.format == "html":
         from .html_report import render_compare_html
 
-        text = render_compare_html(data, models)
+        text = render_compare_html(data, _drawn_models(models, args))
     else:
         text = render_json(data) if args.format == "json" else render_compare_text(data)
+        text = text if args.format == "json" else terminal_text(text)  # names: plain text
     if args.output:
-        _write_new_file(args.output, text)
+        from .safe_output import write_output_file
+
+        write_output_file(args.output, text, flag="")
         sys.stdout.write(f"lti-audit compare: {verdict.upper()}; report written to {args.output}\n")
     else:
         sys.stdout.write(text)
     return {"equivalent": EXIT_OK, "different": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[verdict]
 
 
-def _write_new_file(path: str, text: str) -> None:
-    """Write ``text`` to a new file atomically; never replace an existing file."""
-    import tempfile
+def _is_bilinear(method: str | None) -> bool:
+    """Whether a discretization method name is the bilinear (Tustin) map, the only one
+    with a prewarp frequency."""
+    return method is not None and ("tustin" in method.lower() or "bilinear" in method.lower())
 
-    from .errors import InvalidModelError
 
-    directory = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=directory, prefix=".lti-audit-", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp creates 0600; give the usual mode
-        os.link(tmp, path)  # fails if path exists: no clobbering, even in a race
-    except FileExistsError:
-        raise InvalidModelError(f"{path}: exists already; lti-audit never overwrites a file") from None
-    except OSError as exc:
-        raise InvalidModelError(f"{path}: cannot write ({exc.strerror})") from None
-    finally:
-        os.unlink(tmp)
+def _drawn_models(models: list[Any], args: argparse.Namespace) -> list[Any]:
+    """The models as drawn on one diagram: with ``--discretization``, every continuous-time
+    model is replaced by its declared discretization at the first discrete model's period
+    (what its pair was compared with)."""
+    discrete = [m for m in models if m.is_discrete]
+    if not args.discretization or not discrete or len(discrete) == len(models):
+        return models
+    from .discretization import discretize
+
+    period = float(discrete[0].sample_period)
+    return [m if m.is_discrete else discretize(
+        m, period, method=args.discretization, prewarp_frequency=args.prewarp).with_name(
+        f"{m.name} ({args.discretization}, T = {period:g} s)") for m in models]
 
 
 def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore[no-untyped-def]
@@ -216,7 +225,10 @@ def _inspect(args: argparse.Namespace) -> int:
         r = r.with_name(os.path.basename(args.model))
     insp = inspect_model(r, claimed_form=getattr(doc, "claimed_form", None))
     data = inspect_report(r, args.model, insp)
-    sys.stdout.write(render_json(data) if args.format == "json" else render_inspect_text(data))
+    from .safe_output import terminal_text
+
+    sys.stdout.write(render_json(data) if args.format == "json"
+                     else terminal_text(render_inspect_text(data)))
     return {"ok": EXIT_OK, "problem": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[insp.status]
 
 

@@ -697,10 +697,21 @@ def check_discretization_claim(
         alternatives.append(MethodMatch(alt, pw, a_rel, a_pole, a_ok))
     matching = [a for a in alternatives if a.matches and a.relative_peak_difference is not None]
     best = min(matching, key=lambda a: a.relative_peak_difference or 0.0) if matching else None
+    bilinear = next((m for m in METHODS if "tustin" in m or "bilinear" in m), None)
+    if best is None and bilinear is not None:  # does the bilinear map with a prewarp match?
+        best = _matching_prewarp(continuous, discrete, bilinear, period, omegas, rtol, prtol)
+        if best is not None:
+            alternatives.insert(0, best)
     why = f"relative peak difference {rel:.3g} > rtol={rtol:g}" if rel > rtol else (
         f"poles differ by {pole_diff:.3g} > pole_rtol={prtol:g}"
     )
-    if best is not None:
+    if best is not None and best.prewarp_frequency is not None:
+        message = (
+            f"the matrices match the {best.method} discretization with prewarp frequency "
+            f"{best.prewarp_frequency:.6g} rad/s, not {label} ({why}; with that prewarp the "
+            f"relative peak difference is {best.relative_peak_difference:.3g})"
+        )
+    elif best is not None:
         message = (
             f"the matrices look like a {best.method} discretization, not {label} ({why}; "
             f"{best.method} matches with relative peak difference "
@@ -713,6 +724,38 @@ def check_discretization_claim(
         omegas.size, "fails", tuple(alternatives), None if best is None else best.method,
         message,
     )
+
+
+def _matching_prewarp(continuous: Realization, discrete: Realization, method: str, period: float,
+                      omegas: FloatArray, rtol: float, prtol: float) -> MethodMatch | None:
+    """The prewarp frequency in (0, Nyquist) under which the bilinear discretization of
+    ``continuous`` matches ``discrete``, if one does (a bounded 1-D search on the relative
+    peak difference: a log-spaced scan, then Brent's method around the best point)."""
+    from scipy.optimize import minimize_scalar
+
+    nyquist = math.pi / period
+
+    def mismatch(log_w: float) -> float:
+        try:
+            cand = discretize(continuous, period, method=method,  # type: ignore[arg-type]
+                              prewarp_frequency=float(math.exp(log_w)))
+            return _compare_discrete(cand, discrete, omegas, rtol, prtol)[0]
+        except (InvalidModelError, NumericalTroubleError):
+            return math.inf
+
+    scan = np.linspace(math.log(1e-4 * nyquist), math.log(0.98 * nyquist), 40)
+    values = [mismatch(x) for x in scan]
+    k = int(np.argmin(values))
+    if not math.isfinite(values[k]):
+        return None
+    lo, hi = scan[max(k - 1, 0)], scan[min(k + 1, scan.size - 1)]
+    res = minimize_scalar(mismatch, bounds=(lo, hi), method="bounded",
+                          options={"xatol": 1e-10, "maxiter": 100})
+    log_w = float(res.x) if res.fun <= values[k] else float(scan[k])
+    w = math.exp(log_w)
+    cand = discretize(continuous, period, method=method, prewarp_frequency=w)  # type: ignore[arg-type]
+    rel, _, pole_diff, ok = _compare_discrete(cand, discrete, omegas, rtol, prtol)
+    return MethodMatch(method, w, rel, pole_diff, ok) if ok else None
 
 
 def _check_tolerance(value: Any, name: str) -> float:

@@ -63,6 +63,7 @@ from typing import Annotated, Any, Literal
 import numpy as np
 from pydantic import (
     BaseModel,
+    AfterValidator,
     BeforeValidator,
     ConfigDict,
     Field,
@@ -78,7 +79,13 @@ from .errors import InvalidModelError
 __all__ = [
     "CLAIMED_FORMS",
     "CONJUGATE_RTOL",
+    "MAX_MAGNITUDE",
+    "MAX_NAME_LENGTH",
+    "MAX_NOTE_LENGTH",
     "MAX_ORDER",
+    "MAX_UNIT_LENGTH",
+    "MIN_MAGNITUDE",
+    "MIN_SAMPLE_PERIOD",
     "REPRESENTATIONS",
     "ClaimedForm",
     "DocumentProblem",
@@ -103,6 +110,27 @@ MAX_ORDER = 2000
 #: ``|im| <= CONJUGATE_RTOL * |z|``. Common practice, no source: values written with the
 #: same decimal digits agree exactly; 1e-9 tolerates a last-digit rounding difference.
 CONJUGATE_RTOL = 1e-9
+
+#: Text limits (characters). Names, units and notes are plain text: every front end and
+#: both databases (SQLite, PostgreSQL) accept what the schema accepts. NUL characters and
+#: unpaired UTF-16 surrogates (which no UTF-8 store can hold) are refused everywhere.
+MAX_NAME_LENGTH = 200
+MAX_UNIT_LENGTH = 50
+MAX_NOTE_LENGTH = 10_000
+
+#: Magnitude range of non-zero state-space entries and zeros/poles/gains: the evidence
+#: multiplies two entries (Gramians, norms, similarity checks), and products of two
+#: values in [1e-150, 1e150] stay inside the double range (about 1e-308 to 1e308).
+#: Common practice, no source; values beyond it are refused with this reason (rescale
+#: the units of the states, inputs or outputs).
+MIN_MAGNITUDE = 1e-150
+MAX_MAGNITUDE = 1e150
+#: Sample periods below this (seconds) are refused: no sampled-data system runs faster
+#: than a picosecond, and pi/T, log(z)/T overflow for periods near the double limit.
+MIN_SAMPLE_PERIOD = 1e-12
+#: Subnormal doubles (non-zero, below 2.2250738585072014e-308) have lost precision; they
+#: are refused in every representation (write 0, or rescale).
+SMALLEST_NORMAL = float(np.finfo(float).tiny)
 
 #: At most this many problems are listed in one error message; the rest are counted.
 MAX_LISTED_PROBLEMS = 20
@@ -276,6 +304,28 @@ def _channel_table_structure(value: Any) -> Any:
     return value
 
 
+def _plain_text(value: str) -> str:
+    """After-validator of every text field: no NUL, no unpaired surrogate."""
+    if "\x00" in value:
+        raise _fail((), "contains a NUL character (\\u0000), which text fields cannot hold", 2)
+    try:
+        value.encode("utf-8")
+    except UnicodeEncodeError:
+        raise _fail((), "contains an unpaired UTF-16 surrogate (\\ud800-\\udfff), which is "
+                        "not text", 2) from None
+    return value
+
+
+def _text(max_length: int, *, min_length: int = 0) -> Any:
+    return Annotated[StrictStr, Field(min_length=min_length, max_length=max_length),
+                     AfterValidator(_plain_text)]
+
+
+NameText = _text(MAX_NAME_LENGTH, min_length=1)
+UnitText = _text(MAX_UNIT_LENGTH)
+NoteText = _text(MAX_NOTE_LENGTH)
+
+
 # Strict: no str -> float coercion, no bool; allow_inf_nan=False rejects NaN/inf.
 Number = Annotated[float, Field(strict=True, allow_inf_nan=False)]
 Matrix = Annotated[list[list[Number]], BeforeValidator(_matrix_structure)]
@@ -285,6 +335,36 @@ ComplexPair = Annotated[
 ]
 CoefficientTable = Annotated[list[list[list[Number]]], BeforeValidator(_channel_table_structure)]
 ComplexTable = Annotated[list[list[list[ComplexPair]]], BeforeValidator(_channel_table_structure)]
+
+
+def _magnitude_problem(loc: Loc, values: Any, *, bounded: bool) -> DocumentProblem | None:
+    """The first value of a nested list outside the accepted magnitudes, or None.
+
+    Subnormal non-zero values are always refused; with ``bounded`` also non-zero values
+    outside [:data:`MIN_MAGNITUDE`, :data:`MAX_MAGNITUDE`].
+    """
+    arr = np.asarray(values, dtype=float)
+    if arr.size == 0:
+        return None
+    mag = np.abs(arr)
+    low = MIN_MAGNITUDE if bounded else SMALLEST_NORMAL
+    bad = (mag != 0.0) & ((mag < low) | (mag > (MAX_MAGNITUDE if bounded else np.inf)))
+    if not bad.any():
+        return None
+    index = tuple(int(k) for k in np.unravel_index(int(np.argmax(bad)), arr.shape))
+    value = float(arr[index])
+    if abs(value) < SMALLEST_NORMAL:
+        why = ("is a subnormal number (below 2.2e-308, where doubles lose precision); write "
+               "0 or rescale the model")
+    elif abs(value) < MIN_MAGNITUDE:
+        why = (f"is below {MIN_MAGNITUDE:g} in magnitude (accepted: 0 or {MIN_MAGNITUDE:g} to "
+               f"{MAX_MAGNITUDE:g}, so that products of two entries stay within double "
+               "range); write 0 or rescale the model's units")
+    else:
+        why = (f"is above {MAX_MAGNITUDE:g} in magnitude (accepted: 0 or {MIN_MAGNITUDE:g} to "
+               f"{MAX_MAGNITUDE:g}, so that products of two entries stay within double "
+               "range); rescale the model's units")
+    return DocumentProblem(loc + index, f"{value!r} {why}", 2)
 
 
 def _shape(m: Sequence[Sequence[Any]]) -> tuple[int, int]:
@@ -314,8 +394,8 @@ class Signal(BaseModel):
 
     model_config = _BASE_CONFIG
 
-    name: StrictStr = Field(min_length=1, description="Signal name, e.g. 'belt_speed'.")
-    unit: StrictStr | None = Field(default=None, description="Unit, e.g. 'm/s'.")
+    name: NameText = Field(description="Signal name, e.g. 'belt_speed'.")
+    unit: UnitText | None = Field(default=None, description="Unit, e.g. 'm/s'.")
 
 
 class Provenance(BaseModel):
@@ -323,8 +403,8 @@ class Provenance(BaseModel):
 
     model_config = _BASE_CONFIG
 
-    source: StrictStr | None = Field(default=None, description="Origin of the model.")
-    notes: StrictStr | None = Field(default=None, description="Free-text notes.")
+    source: NoteText | None = Field(default=None, description="Origin of the model.")
+    notes: NoteText | None = Field(default=None, description="Free-text notes.")
 
 
 class Certificate(BaseModel):
@@ -336,9 +416,9 @@ class Certificate(BaseModel):
 
     model_config = _BASE_CONFIG
 
-    source: StrictStr = Field(description="Path of the source model document as given.")
-    source_sha256: StrictStr = Field(description="SHA-256 of the source file's bytes.")
-    conversion: StrictStr = Field(description="Form produced, e.g. 'modal'.")
+    source: NoteText = Field(description="Path of the source model document as given.")
+    source_sha256: NameText = Field(description="SHA-256 of the source file's bytes.")
+    conversion: NameText = Field(description="Form produced, e.g. 'modal'.")
     verdict: Literal["equivalent", "different", "inconclusive"] = Field(
         description="Verdict of the audit of the new realization against the source.")
     relative_error: float | None = Field(
@@ -349,9 +429,9 @@ class Certificate(BaseModel):
         "reached by reduction).")
     largest_eigenvalue_condition: float | None = Field(
         default=None, description="Largest eigenvalue condition number of the new A.")
-    warnings: list[StrictStr] = Field(default_factory=list,
+    warnings: list[NoteText] = Field(default_factory=list,
                                       description="Numerical warnings of the conversion.")
-    lti_audit_version: StrictStr = Field(description="Version of lti-audit that wrote it.")
+    lti_audit_version: NameText = Field(description="Version of lti-audit that wrote it.")
 
 
 class StateSpace(BaseModel):
@@ -454,6 +534,12 @@ class StateSpace(BaseModel):
                     ("c",),
                     f"has {_plural(rc, 'row')} but D has {_plural(p, 'row')} "
                     "(C must be outputs x states, D outputs x inputs)"))
+        if not problems:
+            for key in ("a", "b", "c", "d"):
+                mat = getattr(self, key)
+                found = None if _is_empty(mat) else _magnitude_problem((key,), mat, bounded=True)
+                if found is not None:
+                    problems.append(found)
         if problems:
             raise _Problems(problems)
         return self
@@ -552,6 +638,10 @@ class TransferFunction(BaseModel):
                         "leading coefficient is 0 (the highest power must have a non-zero "
                         "coefficient)"))
                     continue
+                for key, coefficients in (("numerator", num), ("denominator", den)):
+                    found = _magnitude_problem((key, i, j), coefficients, bounded=False)
+                    if found is not None:
+                        problems.append(found)
                 den_degree = len(den) - 1
                 total_degree += den_degree
                 if num:
@@ -637,6 +727,13 @@ class ZerosPolesGain(BaseModel):
                             f"[{re!r}, {im!r}] has no complex-conjugate partner "
                             f"[{re!r}, {-im!r}] (a real system's complex {key} come in "
                             "conjugate pairs)"))
+                for key, values in (("zeros", zs), ("poles", ps)):
+                    found = _magnitude_problem((key, i, j), values, bounded=True)
+                    if found is not None:
+                        problems.append(found)
+                found = _magnitude_problem(("gain", i), [g], bounded=True)
+                if found is not None:
+                    problems.append(DocumentProblem(("gain", i, j), found.message, 2))
                 if g != 0.0 and len(zs) > len(ps):  # a written zero gain: no transmission
                     problems.append(DocumentProblem(
                         (i, j),
@@ -694,7 +791,8 @@ class ModelDocument(BaseModel):
     )
 
     lti_model: Literal[1] = Field(description="Document format version; must be 1.")
-    name: StrictStr = Field(min_length=1, description="Human-readable model name.")
+    name: NameText = Field(description="Human-readable model name (plain text, at most "
+                                        f"{MAX_NAME_LENGTH} characters).")
     sample_period: Annotated[float, Field(gt=0, strict=True, allow_inf_nan=False)] | None = (
         Field(description="null for continuous time; the sample period in seconds (> 0) "
                           "for discrete time. Required.")
@@ -738,6 +836,10 @@ class ModelDocument(BaseModel):
         if not (math.isfinite(seconds) and seconds > 0):
             raise _fail((), "must be a number of seconds > 0, or null for continuous time "
                             f"(got {_describe(value)})", 2)
+        if seconds < MIN_SAMPLE_PERIOD:
+            raise _fail((), f"{seconds!r} s is below the smallest accepted sample period "
+                            f"{MIN_SAMPLE_PERIOD:g} s (a picosecond); write the model in a "
+                            "slower time unit", 2)
         return seconds
 
     # ------------------------------------------------------------ whole document
@@ -842,6 +944,21 @@ class ModelDocument(BaseModel):
     def is_discrete(self) -> bool:
         return self.sample_period is not None
 
+    @property
+    def stated_order(self) -> int:
+        """The number of states the document states, before any conversion.
+
+        State space: the order; transfer function: the sum of the denominator degrees;
+        zeros-poles-gain: the number of poles. A conversion never yields more states, so
+        size limits are checked on this number first.
+        """
+        if self.state_space is not None:
+            return self.state_space.order
+        if self.transfer_function is not None:
+            return sum(len(den) - 1 for row in self.transfer_function.denominator for den in row)
+        assert self.zeros_poles_gain is not None
+        return sum(len(ps) for row in self.zeros_poles_gain.poles for ps in row)
+
 
 # ------------------------------------------------------------- error translation
 def _model_at(loc: Sequence[str | int]) -> type[BaseModel] | None:
@@ -921,6 +1038,10 @@ def _translate(err: Mapping[str, Any]) -> list[DocumentProblem]:
         return [DocumentProblem(loc, f"expected a text string, got {_describe(value)}", 1)]
     if kind == "string_too_short":
         return [DocumentProblem(loc, "must not be empty", 2)]
+    if kind == "string_too_long":
+        return [DocumentProblem(loc, f"is {len(value) if isinstance(value, str) else '?'} "
+                                     f"characters long, above the limit of "
+                                     f"{ctx.get('max_length')} characters", 2)]
     if kind == "literal_error":
         return [DocumentProblem(loc, f"expected {ctx.get('expected')}, got "
                                      f"{_describe(value)}", 2)]

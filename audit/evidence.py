@@ -305,10 +305,11 @@ def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = No
 
 
 def _fmt_complex(p: complex) -> str:
+    re_ = p.real + 0.0  # + 0.0 turns -0.0 into 0.0: no "-0" in reports
     if abs(p.imag) <= 1e-12 * max(abs(p), 1e-300):
-        return f"{p.real:.6g}"
+        return f"{re_:.6g}"
     sign = "+" if p.imag >= 0 else "-"
-    return f"{p.real:.6g}{sign}{abs(p.imag):.6g}j"
+    return f"{re_:.6g}{sign}{abs(p.imag):.6g}j"
 
 
 def fmt_complex(p: complex) -> str:

@@ -1104,8 +1104,9 @@ def jordan_form(
     -------
     FormConversion
         ``details``: ``jordan_blocks`` (list of {"pole": [re, im], "size": k}, size in
-        complex multiplicity), ``rank_decisions``, ``structure_residual``.  Always
-        carries a warning that Jordan structure is numerically fragile.
+        complex multiplicity), ``rank_decisions``, ``structure_residual``.  Carries a
+        warning that Jordan structure is numerically fragile when poles lie within
+        ``cluster_tol`` of each other (only then is a chain structure decided).
 
     Raises
     ------
@@ -1121,7 +1122,7 @@ def jordan_form(
         conv = _identity_conversion("jordan", r)
         return FormConversion(conv.form, conv.realization, conv.transform,
                               conv.transform_condition, conv.eigenvalue_condition_numbers,
-                              (fragile,), conv.details)
+                              (), conv.details)
     n = r.order
     norm_a = max(float(np.linalg.norm(r.a)), _TINY)
     tol = cluster_tol * norm_a  # used for "is this cluster real" only
@@ -1141,7 +1142,7 @@ def jordan_form(
                                 "equals the modal form"})
         return FormConversion("jordan", conv.realization, conv.transform,
                               conv.transform_condition, conv.eigenvalue_condition_numbers,
-                              (fragile,) + tuple(conv.warnings), details)
+                              tuple(conv.warnings), details)  # no close poles: not fragile
     centres = []
     for g in groups:
         vals = [upper[i] for i in g]

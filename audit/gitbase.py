@@ -122,8 +122,8 @@ def resolve_revision(ref: str, *, cwd: str | Path) -> str:
     Raises
     ------
     GitBaseError
-        ``ref`` is not a commit of this repository; the message says how to fetch it in a
-        shallow clone.
+        ``ref`` is not a commit of this repository; the message gives a git command that
+        fits the kind of ref (remote branch, commit, relative ref, shallow clone).
     """
     if not ref or ref.startswith("-"):
         raise GitBaseError(f"--against: {ref!r} is not a git revision")
@@ -133,10 +133,35 @@ def resolve_revision(ref: str, *, cwd: str | Path) -> str:
         shallow = _git(["rev-parse", "--is-shallow-repository"], cwd=root)
         is_shallow = shallow.returncode == 0 and shallow.stdout.strip() == b"true"
         where = " (this is a shallow clone)" if is_shallow else ""
-        raise GitBaseError(
-            f"--against: {ref} not found{where}; in a shallow clone fetch it first, e.g. "
-            f"git fetch --depth=50 origin {ref} (or git fetch --unshallow)")
+        raise GitBaseError(f"--against: {ref} not found{where}; "
+                           + _fetch_hint(ref, root, is_shallow))
     return proc.stdout.decode("ascii").strip()
+
+
+def _fetch_hint(ref: str, root: Path, shallow: bool) -> str:
+    """A git command that would make ``ref`` resolvable, valid for the kind of ref given."""
+    import re
+
+    depth = "--depth=50 " if shallow else ""
+    proc = _git(["remote"], cwd=root)
+    remotes = proc.stdout.decode("utf-8", "replace").split() if proc.returncode == 0 else []
+    if ref.startswith("HEAD") or re.search(r"[~^@{]", ref):  # relative to a commit
+        if shallow:
+            return ("deepen the clone first: git fetch --deepen=50 (or git fetch --unshallow), "
+                    "or name a branch or tag")
+        return "the repository's history does not reach it; name a branch, tag or commit"
+    if not remotes:
+        return ("this repository has no remote to fetch it from; check the name "
+                "(git branch -a, git tag -l)")
+    remote, _, branch = ref.partition("/")
+    # an explicit refspec: a single-branch clone (CI checkouts) has no default one for it
+    if remote in remotes and branch:
+        return f"fetch it first: git fetch {depth}{remote} {branch}:refs/remotes/{remote}/{branch}"
+    first = "origin" if "origin" in remotes else remotes[0]
+    if re.fullmatch(r"[0-9a-fA-F]{7,64}", ref):
+        return f"fetch the commit first: git fetch {depth}{first} {ref}"
+    return (f"if it is a branch of {first}: git fetch {depth}{first} "
+            f"{ref}:refs/remotes/{first}/{ref}, then use --against {first}/{ref}")
 
 
 def read_file_at(commit: str, repo_path: str, *, cwd: str | Path) -> bytes:

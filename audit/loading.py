@@ -6,16 +6,21 @@ File formats (chosen by the file name's suffix):
   :mod:`json` module would silently keep the last one); ``NaN``/``Infinity`` tokens are
   parsed and then rejected by validation with their field path.
 * ``.yaml`` / ``.yml`` -- YAML (Ben-Kiki, Evans, döt Net, "YAML Ain't Markup Language
-  version 1.2", 2009), read with PyYAML's safe loader plus two fixes: duplicate keys are
-  rejected, and exponent floats without a dot (``1e-3``) are numbers, as in YAML 1.2
-  (PyYAML follows YAML 1.1 and would read them as strings). One document per file.
+  version 1.2", 2009) with the 1.2 **core schema** (section 10.3 of revision 1.2.2):
+  PyYAML's safe constructors with our own resolver, so ``1:30``, ``yes``, ``0b101``,
+  ``1_000`` and dates are strings and ``1e-3`` is a number, as a reader of the file
+  expects (PyYAML alone follows YAML 1.1). Duplicate keys are rejected; nesting deeper
+  than :data:`MAX_NESTING` levels is refused while composing. One document per file.
 * ``.toml`` -- TOML v1.0.0 (T. Preston-Werner, 2021) via :mod:`tomllib`. TOML has no null:
   leave ``sample_period`` out of a TOML file for continuous time.
 * ``.npz`` -- a NumPy archive with 2-D arrays ``a``, ``b``, ``c``, ``d`` and an optional
   scalar ``sample_period`` (absent: continuous time); the model name is the file name
   without its suffix. Pickled objects are refused.
 
-No numerical method is implemented here. Every problem with a file becomes an
+Inputs are read only from regular files, below :func:`max_input_bytes` (checked before
+reading); the arrays of an ``.npz`` archive below :func:`max_array_bytes` once
+decompressed (checked from their headers). No numerical method is implemented here.
+Every problem with a file becomes an
 :class:`~audit.errors.InvalidModelError` whose message starts with the file name.
 """
 
@@ -24,7 +29,7 @@ from __future__ import annotations
 import json
 import os
 import re
-import tempfile
+import stat
 import tomllib
 from collections.abc import Mapping
 from pathlib import Path
@@ -43,14 +48,135 @@ __all__ = [
     "dump_model_document",
     "load_model_document",
     "load_realization",
+    "max_array_bytes",
+    "max_input_bytes",
     "parse_model_document",
+    "read_input_bytes",
     "realization_from_document",
 ]
 
 SUPPORTED_SUFFIXES: tuple[str, ...] = (".json", ".yaml", ".yml", ".toml", ".npz")
+
+#: Largest input file read (bytes), checked before reading; an order-2000 dense model
+#: (the document limit) is about 90 MB of JSON. Environment: ``LTI_AUDIT_MAX_INPUT_BYTES``.
+DEFAULT_MAX_INPUT_BYTES = 128 * 1024 * 1024
+#: Largest total size of the arrays of an .npz archive once decompressed (bytes), checked
+#: from the array headers before any array is read; an order-2000 A is 32 MB.
+#: Environment: ``LTI_AUDIT_MAX_ARRAY_BYTES``.
+DEFAULT_MAX_ARRAY_BYTES = 64 * 1024 * 1024
+MAX_INPUT_BYTES_VARIABLE = "LTI_AUDIT_MAX_INPUT_BYTES"
+MAX_ARRAY_BYTES_VARIABLE = "LTI_AUDIT_MAX_ARRAY_BYTES"
 _NPZ_ARRAYS = ("a", "b", "c", "d")
 _NPZ_SHAPES = {"a": "states x states", "b": "states x inputs", "c": "outputs x states",
                "d": "outputs x inputs"}
+
+
+# ------------------------------------------------------------------ reading bytes
+def _limit(variable: str, default: int) -> int:
+    text = os.environ.get(variable)
+    if text is None or not text.strip():
+        return default
+    try:
+        value = int(text.strip().replace("_", ""))
+    except ValueError:
+        raise InvalidModelError(f"environment variable {variable}={text!r}: expected a whole "
+                                "number of bytes") from None
+    if value <= 0:
+        raise InvalidModelError(f"environment variable {variable}={text!r}: expected a "
+                                "number of bytes > 0")
+    return value
+
+
+def max_input_bytes() -> int:
+    """The input file size limit in bytes (``LTI_AUDIT_MAX_INPUT_BYTES`` or the default)."""
+    return _limit(MAX_INPUT_BYTES_VARIABLE, DEFAULT_MAX_INPUT_BYTES)
+
+
+def max_array_bytes() -> int:
+    """The decompressed .npz array limit in bytes (``LTI_AUDIT_MAX_ARRAY_BYTES`` or default)."""
+    return _limit(MAX_ARRAY_BYTES_VARIABLE, DEFAULT_MAX_ARRAY_BYTES)
+
+
+_FILE_KINDS = ((stat.S_ISFIFO, "a FIFO (named pipe)"), (stat.S_ISCHR, "a character device"),
+               (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket"))
+
+
+def _kind(mode: int) -> str:
+    return next((name for test, name in _FILE_KINDS if test(mode)), "not a regular file")
+
+
+def read_input_bytes(path: str | Path, *, source: str | None = None,
+                     error: type[AuditError] = InvalidModelError,
+                     what: str = "a model file") -> bytes:
+    """The bytes of an input file: regular files only, size-limited before reading.
+
+    A FIFO, a device (``/dev/zero``, ``/dev/urandom``), a socket or a directory is
+    refused without reading from it (a link to one too); a file above
+    :func:`max_input_bytes` is refused from its size, and reading stops there even if
+    the file grows meanwhile. The file is opened non-blocking, so a FIFO swapped in
+    between the check and the open cannot block.
+
+    Parameters
+    ----------
+    path : str or Path
+    source : str, optional
+        Start of error messages (default: the path as given).
+    error : AuditError subclass, keyword-only
+        Raised with ``source=`` (``InvalidModelError``, or the manifest's error type).
+    what : str, keyword-only
+        What the file should be, for messages ("a model file").
+
+    Returns
+    -------
+    bytes
+
+    Raises
+    ------
+    InvalidModelError (or ``error``)
+    """
+    source = str(path) if source is None else source
+    limit = max_input_bytes()
+
+    def fail(message: str) -> AuditError:
+        return error(message, source=source)  # type: ignore[call-arg]
+
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        raise fail("file not found") from None
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror or exc})") from None
+    if stat.S_ISDIR(st.st_mode):
+        raise fail(f"is a directory, not {what}")
+    if not stat.S_ISREG(st.st_mode):
+        raise fail(f"is {_kind(st.st_mode)}, not {what}; lti-audit reads regular files only")
+    if st.st_size > limit:
+        raise fail(f"is {st.st_size} bytes, above the input size limit of {limit} bytes "
+                   f"(set {MAX_INPUT_BYTES_VARIABLE} to change it)")
+    try:
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0)
+                     | getattr(os, "O_CLOEXEC", 0))
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror or exc})") from None
+    try:
+        if not stat.S_ISREG(os.fstat(fd).st_mode):
+            raise fail(f"is not a regular file, not {what}")
+        chunks = []
+        total = 0
+        while total <= limit:
+            chunk = os.read(fd, min(1 << 20, limit + 1 - total))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            total += len(chunk)
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror or exc})") from None
+    finally:
+        os.close(fd)
+    if total > limit:
+        raise fail(f"is more than {limit} bytes, above the input size limit "
+                   f"(set {MAX_INPUT_BYTES_VARIABLE} to change it)")
+    return b"".join(chunks)
 
 
 # ------------------------------------------------------------------------ parsers
@@ -63,6 +189,20 @@ def _no_duplicate_keys(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
     return out
 
 
+#: Deepest nesting of lists and mappings read from YAML (checked while composing).
+MAX_NESTING = 64
+
+_TOO_DEEP = ("{fmt} nesting is too deep to read (lists or objects nested about a thousand "
+             "levels or more); a model document nests at most 5 levels")
+
+
+def _int_digits_message(exc: Exception) -> str:
+    text = str(exc)
+    if "integer string conversion" in text:  # CPython's limit on int(str) (4300 digits)
+        return "an integer with thousands of digits is not a number lti-audit reads"
+    return text
+
+
 def _parse_json(text: str, source: str) -> Any:
     try:
         return json.loads(text, object_pairs_hook=_no_duplicate_keys)
@@ -70,16 +210,65 @@ def _parse_json(text: str, source: str) -> Any:
         raise InvalidModelError(
             f"JSON syntax error at line {exc.lineno}, column {exc.colno}: {exc.msg}",
             source=source) from None
+    except RecursionError:
+        raise InvalidModelError(_TOO_DEEP.format(fmt="JSON"), source=source) from None
     except ValueError as exc:  # duplicate key (no position available from the hook)
-        raise InvalidModelError(f"invalid JSON: {exc}", source=source) from None
+        raise InvalidModelError(f"invalid JSON: {_int_digits_message(exc)}",
+                                source=source) from None
 
 
-class _StrictYamlLoader(yaml.SafeLoader):
-    """Safe loader; rejects duplicate keys; reads ``1e-3`` as a float (YAML 1.2)."""
+class _CoreSchemaResolver(yaml.resolver.BaseResolver):
+    """Implicit tags of the YAML 1.2 core schema (YAML 1.2.2, section 10.3.2).
+
+    Only these plain scalars are not strings: null (``null``, ``Null``, ``NULL``, ``~``,
+    empty), booleans (``true``/``True``/``TRUE``, ``false``/...), integers (decimal,
+    ``0o`` octal, ``0x`` hexadecimal) and floats (decimal with optional exponent,
+    ``.inf``, ``.nan``). YAML 1.1's extras -- base-60 numbers (``1:30``), ``yes``/``no``/
+    ``on``/``off``, ``_`` digit separators, leading-zero octal, timestamps, merge keys --
+    stay strings, so a value means what a reader of the file sees.
+    """
+
+
+for _tag, _pattern, _first in (
+    ("tag:yaml.org,2002:null", r"^(?:~|null|Null|NULL|)$", ["~", "n", "N", ""]),
+    ("tag:yaml.org,2002:bool", r"^(?:true|True|TRUE|false|False|FALSE)$", list("tTfF")),
+    ("tag:yaml.org,2002:int", r"^(?:[-+]?[0-9]+|0o[0-7]+|0x[0-9a-fA-F]+)$",
+     list("-+0123456789")),
+    ("tag:yaml.org,2002:float",
+     r"^(?:[-+]?(?:\.[0-9]+|[0-9]+(?:\.[0-9]*)?)(?:[eE][-+]?[0-9]+)?"
+     r"|[-+]?\.(?:inf|Inf|INF)|\.(?:nan|NaN|NAN))$", list("-+0123456789.")),
+):
+    _CoreSchemaResolver.add_implicit_resolver(_tag, re.compile(_pattern), _first)
+
+
+class _StrictYamlLoader(yaml.reader.Reader, yaml.scanner.Scanner, yaml.parser.Parser,
+                        yaml.composer.Composer, yaml.constructor.SafeConstructor,
+                        _CoreSchemaResolver):
+    """Safe loader with YAML 1.2 core-schema scalars; rejects duplicate keys."""
+
+    def compose_node(self, parent: Any, index: Any) -> Any:
+        # A model document nests a few levels; stop deep nesting before the recursive
+        # composer spends seconds and the interpreter's stack on it.
+        self._depth = getattr(self, "_depth", 0) + 1
+        try:
+            if self._depth > MAX_NESTING:
+                raise yaml.composer.ComposerError(
+                    None, None, f"nesting deeper than {MAX_NESTING} levels (a model document "
+                    "nests at most 5)", self.peek_event().start_mark)
+            return super().compose_node(parent, index)
+        finally:
+            self._depth -= 1
+
+    def __init__(self, stream: str) -> None:
+        yaml.reader.Reader.__init__(self, stream)
+        yaml.scanner.Scanner.__init__(self)
+        yaml.parser.Parser.__init__(self)
+        yaml.composer.Composer.__init__(self)
+        yaml.constructor.SafeConstructor.__init__(self)
+        _CoreSchemaResolver.__init__(self)
 
 
 def _construct_mapping_no_duplicates(loader: _StrictYamlLoader, node: yaml.MappingNode) -> Any:
-    loader.flatten_mapping(node)
     seen: set[Any] = set()
     for key_node, _ in node.value:
         key = loader.construct_object(key_node, deep=True)
@@ -94,14 +283,24 @@ def _construct_mapping_no_duplicates(loader: _StrictYamlLoader, node: yaml.Mappi
     return loader.construct_mapping(node, deep=True)
 
 
+def _construct_core_int(loader: _StrictYamlLoader, node: yaml.ScalarNode) -> int:
+    text = str(loader.construct_scalar(node))
+    digits = text.lstrip("+-")
+    if len(digits) > 400:  # a double holds about 1e308; CPython refuses int(str) > 4300
+        raise yaml.constructor.ConstructorError(
+            None, None, f"an integer with {len(digits)} digits is too large for a "
+            "double-precision number", node.start_mark)
+    sign = -1 if text.startswith("-") else 1
+    if digits.startswith("0o"):
+        return sign * int(digits[2:], 8)
+    if digits.startswith("0x"):
+        return sign * int(digits[2:], 16)
+    return int(text, 10)
+
+
 _StrictYamlLoader.add_constructor(
     yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_mapping_no_duplicates)
-# YAML 1.2 core-schema floats with an exponent but no dot, e.g. 1e-3, -2E+5.
-_StrictYamlLoader.add_implicit_resolver(
-    "tag:yaml.org,2002:float",
-    re.compile(r"^[-+]?[0-9][0-9_]*(?:\.[0-9_]*)?[eE][-+]?[0-9]+$"),
-    list("-+0123456789"),
-)
+_StrictYamlLoader.add_constructor("tag:yaml.org,2002:int", _construct_core_int)
 
 
 def _parse_yaml(text: str, source: str) -> Any:
@@ -115,6 +314,11 @@ def _parse_yaml(text: str, source: str) -> Any:
         raise InvalidModelError(f"YAML {kind}{where}: {what}", source=source) from None
     except yaml.YAMLError as exc:
         raise InvalidModelError(f"YAML error: {exc}", source=source) from None
+    except RecursionError:
+        raise InvalidModelError(_TOO_DEEP.format(fmt="YAML"), source=source) from None
+    except (ValueError, OverflowError) as exc:
+        raise InvalidModelError(f"YAML error: {_int_digits_message(exc)}",
+                                source=source) from None
 
 
 def _parse_toml(text: str, source: str) -> Any:
@@ -123,15 +327,57 @@ def _parse_toml(text: str, source: str) -> Any:
     except tomllib.TOMLDecodeError as exc:
         # The message carries "(at line L, column C)".
         raise InvalidModelError(f"TOML syntax error: {exc}", source=source) from None
+    except RecursionError:
+        raise InvalidModelError(_TOO_DEEP.format(fmt="TOML"), source=source) from None
+    except ValueError as exc:  # e.g. an integer beyond CPython's digit limit
+        raise InvalidModelError(f"TOML error: {_int_digits_message(exc)}",
+                                source=source) from None
     if "lti_model" in data and "sample_period" not in data:
         data["sample_period"] = None  # TOML has no null: absent means continuous time
     return data
 
 
+def _npz_array_bytes(archive: Any, names: set[str], source: str) -> None:
+    """Refuse arrays whose decompressed size (from their .npy headers) is above the limit.
+
+    Only the header of each member is decompressed (NumPy ``.npy`` format, versions 1 to
+    3: magic, version, header dictionary with ``shape`` and ``descr``).
+    """
+    limit = max_array_bytes()
+    total = 0
+    for key in sorted(names):
+        try:
+            with archive.zip.open(f"{key}.npy") as member:
+                version = np.lib.format.read_magic(member)
+                read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                               else np.lib.format.read_array_header_2_0)
+                shape, _, dtype = read_header(member)
+        except Exception as exc:  # noqa: BLE001 - any malformed member is bad input
+            raise InvalidModelError(f"array {key!r} has an unreadable header ({exc})",
+                                    field=key, source=source) from None
+        if dtype.hasobject:
+            raise InvalidModelError(f"array {key!r} holds Python objects; pickled arrays "
+                                    "are refused (a, b, c, d hold real numbers)",
+                                    field=key, source=source)
+        count = 1
+        for k in shape:
+            count *= int(k)
+        total += count * dtype.itemsize
+        if total > limit:
+            raise InvalidModelError(
+                f"array {key!r} has shape {tuple(shape)} ({count * dtype.itemsize} bytes "
+                f"decompressed); the arrays exceed the limit of {limit} bytes (set "
+                f"{MAX_ARRAY_BYTES_VARIABLE} to change it)", field=key, source=source)
+
+
 def _read_npz(path: Path, source: str) -> dict[str, Any]:
+    import io
+    import zipfile
+
+    raw = read_input_bytes(path, source=source)
     try:
-        archive = np.load(path, allow_pickle=False)
-    except (OSError, ValueError, EOFError) as exc:
+        archive = np.load(io.BytesIO(raw), allow_pickle=False)
+    except (OSError, ValueError, EOFError, zipfile.BadZipFile) as exc:
         raise InvalidModelError(f"is not a readable .npz archive ({exc})", source=source) from None
     if not isinstance(archive, np.lib.npyio.NpzFile):
         raise InvalidModelError("is a single .npy array, not an .npz archive with arrays "
@@ -152,11 +398,13 @@ def _read_npz(path: Path, source: str) -> dict[str, Any]:
                 f"unexpected array(s) {', '.join(repr(k) for k in unknown)}; an .npz model "
                 "holds only 'a', 'b', 'c', 'd' and optionally 'sample_period'",
                 field=unknown[0], source=source)
+        _npz_array_bytes(archive, names, source)
         state_space: dict[str, Any] = {}
         for key in _NPZ_ARRAYS:
             try:
                 arr = archive[key]
-            except ValueError as exc:  # object arrays need pickle, which is refused
+            except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
+                # object arrays need pickle, which is refused; truncated members
                 raise InvalidModelError(f"array {key!r} cannot be read without pickle ({exc})",
                                         field=key, source=source) from None
             if arr.dtype.kind not in "iuf":
@@ -174,7 +422,7 @@ def _read_npz(path: Path, source: str) -> dict[str, Any]:
         if "sample_period" in names:
             try:
                 sp = archive["sample_period"]
-            except ValueError as exc:
+            except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
                 raise InvalidModelError(f"array 'sample_period' cannot be read ({exc})",
                                         field="sample_period", source=source) from None
             if sp.size != 1 or sp.dtype.kind not in "iuf":
@@ -225,8 +473,9 @@ def load_model_document(path: str | Path) -> ModelDocument:
     Raises
     ------
     InvalidModelError
-        The file is missing, unreadable, not UTF-8, has an unsupported suffix, has a
-        syntax error (with line and column when the parser gives them), is not a model
+        The file is missing, not a regular file (FIFO, device, directory), above the size
+        limits (:func:`max_input_bytes`, :func:`max_array_bytes`), unreadable, not UTF-8,
+        has an unsupported suffix, nests too deeply, has a syntax error (with line and column when the parser gives them), is not a model
         document, or is an invalid one. The message starts with the file name.
 
     Examples
@@ -239,22 +488,17 @@ def load_model_document(path: str | Path) -> ModelDocument:
     p = Path(path)
     source = str(path)
     suffix = p.suffix.lower()
+    if p.is_dir():
+        raise InvalidModelError("is a directory, not a model file (expected a .json, .yaml, "
+                                ".yml, .toml or .npz file)", source=source)
     if suffix not in SUPPORTED_SUFFIXES:
         raise InvalidModelError(
             f"unsupported file type {p.suffix or '(no suffix)'!r}; expected one of "
             f"{', '.join(SUPPORTED_SUFFIXES)}", source=source)
-    if not p.exists():
-        raise InvalidModelError("file not found", source=source)
-    if p.is_dir():
-        raise InvalidModelError("is a directory, not a model file", source=source)
     if suffix == ".npz":
         data: Any = _read_npz(p, source)
     else:
-        try:
-            raw = p.read_bytes()
-        except OSError as exc:
-            raise InvalidModelError(f"cannot be read ({exc.strerror or exc})",
-                                    source=source) from None
+        raw = read_input_bytes(p, source=source)
         try:
             text = raw.decode("utf-8-sig")
         except UnicodeDecodeError as exc:
@@ -469,12 +713,14 @@ def render_model_document(doc: ModelDocument) -> str:
 
 def dump_model_document(doc: ModelDocument, path: str | Path, *,
                         overwrite: bool = False) -> Path:
-    """Write a model document as JSON, atomically.
+    """Write a model document as JSON, atomically, under the tool's output rule.
 
-    The text goes to a temporary file in the target directory, is flushed to disk, and
-    then takes the target name (``os.link`` when not overwriting, so an existing file is
-    never clobbered even by a concurrent writer; ``os.replace`` otherwise). Floats are
-    written with ``repr``, so loading the file gives back the same numbers bit for bit.
+    See :func:`audit.safe_output.write_output_file`: the text goes to a temporary file
+    in the target directory, is flushed to disk, and then takes the target name
+    (``os.link`` when not overwriting, so an existing file is never clobbered even by a
+    concurrent writer; ``os.replace`` otherwise); a symbolic link is never written
+    through. Floats are written with ``repr``, so loading the file gives back the same
+    numbers bit for bit.
 
     Parameters
     ----------
@@ -493,35 +739,13 @@ def dump_model_document(doc: ModelDocument, path: str | Path, *,
     ------
     FileExistsError
         ``path`` exists and ``overwrite`` is false.
-    OSError
-        The directory does not exist or is not writable.
+    audit.safe_output.OutputRefusedError
+        ``path`` is a link or a directory, or its folder is missing or not writable.
     """
+    from .safe_output import write_output_file
+
     target = Path(path)
-    text = render_model_document(doc)
-    if not overwrite and target.exists():
+    if not overwrite and os.path.lexists(target):
         raise FileExistsError(f"{target}: already exists; pass overwrite=True to replace it")
-    fd, tmp_name = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".tmp")
-    tmp = Path(tmp_name)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        if overwrite:
-            os.replace(tmp, target)
-        else:
-            try:
-                os.link(tmp, target)  # atomic, fails if the target appeared meanwhile
-            except FileExistsError:
-                raise FileExistsError(
-                    f"{target}: already exists; pass overwrite=True to replace it") from None
-            except OSError:  # file system without hard links
-                if target.exists():
-                    raise FileExistsError(
-                        f"{target}: already exists; pass overwrite=True to replace it"
-                    ) from None
-                os.replace(tmp, target)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-    return target
+    return write_output_file(target, render_model_document(doc), overwrite=overwrite,
+                             flag="overwrite=True")

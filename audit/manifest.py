@@ -224,6 +224,9 @@ def _check_relative_path(value: str) -> str:
                          "manifest's directory, written with '/'")
     if "\\" in text:
         raise ValueError(f"got {value!r}; write paths with '/' (not '\\')")
+    if ".." in text.split("/"):
+        raise ValueError(f"got {value!r}; paths must stay inside the manifest's directory "
+                         "('..' is not allowed)")
     return text
 
 
@@ -526,10 +529,11 @@ def load_claims_manifest(path: str | Path) -> ManifestFile:
         raise InvalidManifestError("manifest not found", source=source)
     if p.is_dir():
         raise InvalidManifestError("is a directory, not a manifest file", source=source)
+    from .loading import read_input_bytes  # regular files only, size-limited
+
     try:
-        text = p.read_bytes().decode("utf-8-sig")
-    except OSError as exc:
-        raise InvalidManifestError(f"cannot be read ({exc.strerror or exc})", source=source) from None
+        text = read_input_bytes(p, source=source, error=InvalidManifestError,
+                                what="a manifest file").decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise InvalidManifestError(f"is not UTF-8 text (byte {exc.start} cannot be decoded)",
                                    source=source) from None
@@ -537,6 +541,9 @@ def load_claims_manifest(path: str | Path) -> ManifestFile:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InvalidManifestError(f"TOML syntax error: {exc}", source=source) from None
+    except (RecursionError, ValueError) as exc:  # deep nesting, a 5000-digit integer
+        raise InvalidManifestError("TOML error: " + ("nesting too deep to read" if isinstance(
+            exc, RecursionError) else str(exc).split(";")[0]), source=source) from None
     content = parse_claims_manifest(data, source=source)
     return ManifestFile(p, p.resolve().parent, content)
 
@@ -676,9 +683,10 @@ def coordinate_change(r1: Any, r2: Any, pair: Any) -> tuple[CoordinateChange, st
     sentence : str
         Plain words for reports.
     settled : bool
-        False when both realizations are minimal of equal order (so a ``T`` exists in
-        exact arithmetic) but none was found numerically: "not similar" is then not a
-        finding but a numerical limitation.
+        False when "similar" cannot be decided: a realization is not minimal (the
+        similarity of the minimal parts says nothing about the hidden modes), or both
+        are minimal of equal order (so a ``T`` exists in exact arithmetic) but none was
+        found numerically.
 
     Raises
     ------
@@ -695,9 +703,21 @@ def coordinate_change(r1: Any, r2: Any, pair: Any) -> tuple[CoordinateChange, st
     if not both_minimal:
         which = [lbl for lbl, r, o in zip(("first", "second"), (r1, r2), orders + [0, 0])
                  if o != r.order]
+        hidden = [sorted((complex(*h["location"]) for h in e.details.get("hidden_modes", [])),
+                         key=lambda z: (z.real, z.imag)) for e in minimal]
+        if len(hidden) == 2 and (len(hidden[0]) != len(hidden[1]) or any(
+                abs(a - b) > 1e-6 * max(1.0, abs(a)) for a, b in zip(*hidden))):
+            # a change of coordinates keeps every eigenvalue, hidden ones included
+            from .evidence import fmt_complex
+
+            def listed(zs: list[complex]) -> str:
+                return ", ".join(fmt_complex(z) for z in zs[:4]) or "none"
+            return ("transfer_only", f"the {' and '.join(which) or 'models'} realization(s) are "
+                    f"not minimal and their hidden modes differ ({listed(hidden[0])} vs "
+                    f"{listed(hidden[1])}); the transfer function is the same", True)
         return ("transfer_only", f"the {' and '.join(which) or 'models'} realization(s) are "
-                "not minimal (hidden modes), so 'only state coordinates changed' is not "
-                "decided; the transfer function is the same", True)
+                "not minimal and their hidden modes agree, so only the minimal parts could be "
+                "related", False)
     sim = _evidence(pair, "similarity")
     if sim is not None and sim.outcome == "info" and bool(sim.details.get("found")):
         cond = sim.details.get("condition_number")
@@ -721,8 +741,11 @@ class _Models:
         if rel not in self._cache:
             from .loading import load_realization
 
+            from .safe_output import path_inside
+
             path = self.directory / rel
             try:
+                path = path_inside(self.directory, rel, what=rel)  # no link out of it
                 r = load_realization(path)
                 self._cache[rel] = r.with_name(rel)
             except AuditError as exc:
@@ -848,7 +871,9 @@ def _check_relation(claim: Claim, models: _Models, rtol: float,
             else:
                 outcome = "fails" if settled else "inconclusive"
                 sentence = (f"{r.name} has the same transfer function as {rs[0].name}, but is "
-                            f"not a change of state coordinates of it: {words}.")
+                            f"not a change of state coordinates of it: {words}." if settled else
+                            f"{r.name} has the same transfer function as {rs[0].name}; whether it "
+                            f"is a change of state coordinates of it is not decided: {words}.")
         else:
             outcome, sentence = "holds", pair.explanation
         verdicts.append(outcome)

@@ -12,8 +12,9 @@ package), so that in any project with lti-audit installed::
         assert_same_system(reference_realization, reduced_realization, rtol=1e-4)
 
 ``a`` and ``b`` may each be a path to a model file, an
-:class:`audit.realization.Realization`, an :class:`audit.documents.ModelDocument` or a
-model-document ``dict``. The assertion compares them with
+:class:`audit.realization.Realization`, an :class:`audit.documents.ModelDocument`, a
+model-document ``dict``, or a python-control ``StateSpace`` / ``TransferFunction`` or
+scipy.signal LTI object (converted by :mod:`audit.interop`). The assertion compares them with
 :func:`audit.verdict.compare_pair`; on failure the ``AssertionError`` message is the
 human-readable diagnosis (explanation, diagnosis lines, warnings, the decisive evidence).
 An inconclusive comparison fails too (the assertion cannot be confirmed), with the reason.
@@ -58,9 +59,15 @@ def _as_realization(obj: Any, argument: str) -> Any:
     if isinstance(obj, dict):
         doc = parse_model_document(obj, source=f"{argument} (model-document dict)")
         return realization_from_document(doc)
+    from .interop import is_foreign_system, realization_from_object
+
+    if is_foreign_system(obj):  # python-control / scipy.signal objects
+        r = realization_from_object(obj)
+        return r.with_name(r.name or argument)
     raise InvalidModelError(
         f"{argument}: got {type(obj).__name__}, expected a path to a model file, a "
-        "Realization, a ModelDocument or a model-document dict", field=argument)
+        "Realization, a ModelDocument, a model-document dict, or a python-control / "
+        "scipy.signal LTI object", field=argument)
 
 
 def compare_systems(a: Any, b: Any, *, rtol: float | None = None,
@@ -69,7 +76,7 @@ def compare_systems(a: Any, b: Any, *, rtol: float | None = None,
 
     Parameters
     ----------
-    a, b : path, Realization, ModelDocument or dict
+    a, b : path, Realization, ModelDocument, dict, or python-control / scipy.signal system
         The reference and the model under test; ``A : (n, n)``, ``B : (n, m)``,
         ``C : (p, n)``, ``D : (p, m)`` once loaded.
     rtol : float or None, keyword-only
@@ -110,7 +117,7 @@ def failure_message(pair: "PairComparison") -> str:
 
     head = {"different": "models are DIFFERENT", "inconclusive": "equivalence is INCONCLUSIVE"}
     lines = [f"lti-audit: {head.get(pair.verdict, pair.verdict)}", pair.explanation]
-    diag = diagnosis_lines(pair.diagnosis)
+    diag = diagnosis_lines(pair.diagnosis)  # includes the worst channel in dB and degrees
     if diag:
         lines.append("diagnosis:")
         lines += [f"  - {d}" for d in diag]

@@ -97,6 +97,31 @@ class Realization:
             name=name,
         )
 
+    @classmethod
+    def from_object(cls, obj: Any, *, name: str | None = None) -> "Realization":
+        """From a python-control or scipy.signal LTI object (see :mod:`audit.interop`).
+
+        Raises
+        ------
+        InvalidModelError
+            An unsupported object or invalid data.
+        """
+        from .interop import realization_from_object
+
+        return realization_from_object(obj, name=name)
+
+    def to_python_control(self) -> Any:
+        """This realization as a ``control.StateSpace`` (see :mod:`audit.interop`)."""
+        from .interop import realization_to_python_control
+
+        return realization_to_python_control(self)
+
+    def to_scipy(self) -> Any:
+        """This realization as a ``scipy.signal.StateSpace`` (see :mod:`audit.interop`)."""
+        from .interop import realization_to_scipy
+
+        return realization_to_scipy(self)
+
     # ------------------------------------------------------------------ shape
     @property
     def order(self) -> int:

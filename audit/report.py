@@ -7,12 +7,14 @@ numerics.
 from __future__ import annotations
 
 import json
+import math
 from importlib import metadata
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
 from .evidence import to_jsonable
+from .trade_units import TRADE_UNITS_FLOOR, describe_channel_difference as trade_units_phrase
 
 CAUTION = (
     "Caution: this verdict is numerical evidence within the stated tolerances, not a "
@@ -159,13 +161,26 @@ def compare_report(models: list[Any], sources: list[str], pairs: list[Any], opti
 
 def _compare_summary(pairs: list[Any], verdict: str) -> str:
     if len(pairs) == 1:
-        return pairs[0].explanation
+        return _with_trade_units(pairs[0])
     counts = {v: sum(p.verdict == v for p in pairs) for v in ("equivalent", "different", "inconclusive")}
     head = (f"{verdict.upper()}: of {len(pairs)} models compared with {pairs[0].reference}, "
             f"{counts['equivalent']} equivalent, {counts['different']} different, "
             f"{counts['inconclusive']} inconclusive.")
-    firsts = [p for p in pairs if p.verdict == verdict]
-    return head + (" " + firsts[0].explanation if firsts and verdict != "equivalent" else "")
+    if verdict == "equivalent":
+        return head
+    # every model that is not equivalent is named, differing ones first
+    rest = [p for p in pairs if p.verdict == "different"] + [p for p in pairs if p.verdict == "inconclusive"]
+    return " ".join([head] + [_with_trade_units(p) for p in rest])
+
+
+def _with_trade_units(pair: Any) -> str:
+    """The pair's explanation, plus the worst channel in dB and degrees when it differs."""
+    text = str(pair.explanation)
+    if pair.verdict != "different":
+        return text
+    grid = next((e for e in pair.evidence if e.key == "frequency_grid"), None)
+    phrase = trade_units_phrase(grid.details.get("trade_units") if grid is not None else None)
+    return text + (f" In dB and degrees: {phrase}." if phrase else "")
 
 
 def inspect_report(r: Any, source: str, insp: Any) -> dict[str, Any]:
@@ -207,7 +222,27 @@ def _num(v: Any) -> str:
         return v
     if isinstance(v, (int,)) and not isinstance(v, bool):
         return str(v)
-    return f"{float(v):.3g}"
+    return f"{float(v) + 0.0:.3g}"  # + 0.0: no "-0"
+
+
+def evidence_value_text(ev: dict[str, Any]) -> str:
+    """The value column of an evidence entry, in words where a bare number would mislead."""
+    det = ev.get("details") or {}
+    if ev.get("outcome") == "skipped":
+        return "-"
+    if str(ev.get("summary", "")).startswith("neither model has"):
+        return "none"  # no poles / zeros to match: a 0 would read as "no move"
+    if ev.get("key") == "similarity" and not det.get("found", True):
+        return "none found"
+    if ev.get("key") == "similarity":
+        return f"cond(T) {_num(ev.get('value'))}"
+    if ev.get("key") == "static_gains":
+        dc = det.get("dc")
+        if isinstance(dc, dict) and "relative_difference" not in dc:  # a DC gain is infinite
+            if dc.get("first") is None and dc.get("second") is None:
+                return f"{_num(ev.get('value'))} (high-frequency gain only; both DC gains infinite)"
+            return "DC gain infinite in one model only"
+    return _num(ev.get("value"))
 
 
 def render_compare_text(data: dict[str, Any]) -> str:
@@ -227,18 +262,39 @@ def render_compare_text(data: dict[str, Any]) -> str:
         for ev in pair["evidence"]:
             mark = "*" if ev["decisive"] else "-"
             tol = "" if ev["tolerance"] is None else f" tol {_num(ev['tolerance'])}"
-            lines.append(f"   {mark} [{ev['outcome']:7s}] {ev['title']}: value {_num(ev['value'])}{tol}; "
+            lines.append(f"   {mark} [{ev['outcome']:7s}] {ev['title']}: value {evidence_value_text(ev)}{tol}; "
                          f"{ev['precision']}, {ev['seconds']:.3f}s")
             lines.append(_wrap(ev["summary"], "       "))
-        diag = pair["diagnosis"]
-        if diag:
+        trade = trade_lines(pair, data["models"][0])
+        if trade:
+            lines.append("   in dB and degrees:")
+            for line in trade:
+                lines.append(_wrap(line, "     "))
+        diag_lines = _diagnosis_lines(pair["diagnosis"] or {}, data["models"][0])
+        if diag_lines:  # no empty heading
             lines.append("   diagnosis:")
-            for line in _diagnosis_lines(diag, data["models"][0]):
+            for line in diag_lines:
                 lines.append(_wrap(line, "     "))
     lines.append("")
     lines.append(_wrap(data["summary"], ""))
     lines.append(data["caution"])
     return "\n".join(lines) + "\n"
+
+
+def trade_lines(pair: dict[str, Any], reference: dict[str, Any], limit: int = 4) -> list[str]:
+    """Per-channel gain (dB) and phase (degrees) differences of a pair that is not equivalent."""
+    if pair.get("verdict") == "equivalent":
+        return []
+    grid = next((e for e in pair.get("evidence", []) if e.get("key") == "frequency_grid"), None)
+    trade = (grid or {}).get("details", {}).get("trade_units")
+    if not trade or not trade.get("channels"):
+        return []
+    chans = sorted(trade["channels"], key=lambda c: -c["at_worst"].get("absolute_difference", 0.0))
+    shown = [trade_units_phrase(trade, c, reference) for c in chans[:limit]
+             if c["at_worst"].get("absolute_difference", 0.0) > 0.0]
+    if len(chans) > limit:
+        shown.append(f"({len(chans) - limit} more channel(s) in the JSON report)")
+    return [s for s in shown if s]
 
 
 def _signal(names: list[str] | None, index: int) -> str:
@@ -263,6 +319,8 @@ def _diagnosis_lines(diag: dict[str, Any], reference: dict[str, Any] | None = No
         out.append(diag["permutation"]["sentence"])
     if "constant_scale" in diag:
         out.append(diag["constant_scale"]["sentence"])
+    if "reversed_coefficients" in diag:
+        out.append(diag["reversed_coefficients"]["sentence"])
     for key, what in (("moved_poles", "pole"), ("moved_zeros", "zero")):
         for mv in diag.get(key, [])[:3]:
             out.append(f"{what} moved: {_pt(mv.get('first'))} -> {_pt(mv.get('second'))} "
@@ -272,7 +330,7 @@ def _diagnosis_lines(diag: dict[str, Any], reference: dict[str, Any] | None = No
 
 def _pt(v: Any) -> str:
     if isinstance(v, (list, tuple)) and len(v) == 2:
-        re, im = float(v[0]), float(v[1])
+        re, im = float(v[0]) + 0.0, float(v[1]) + 0.0  # + 0.0: no "-0"
         return f"{re:.6g}" if im == 0 else f"{re:.6g}{'+' if im >= 0 else '-'}{abs(im):.6g}j"
     return str(v)
 
@@ -321,7 +379,7 @@ def _mat(v: Any) -> str:
     if isinstance(v, list) and len(v) == 1 and isinstance(v[0], list) and len(v[0]) == 1:
         return _num(v[0][0])
     if isinstance(v, list) and all(isinstance(row, list) for row in v):
-        return "[" + "; ".join(" ".join(f"{float(x):.6g}" for x in row) for row in v) + "]"
+        return "[" + "; ".join(" ".join(f"{float(x) + 0.0:.6g}" for x in row) for row in v) + "]"
     return json.dumps(to_jsonable(v))
 
 

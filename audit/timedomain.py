@@ -528,7 +528,8 @@ def response_horizon(
         mag = np.abs(poles)
         with np.errstate(divide="ignore"):
             rates = -np.log(mag) / period  # +inf for poles at z = 0
-        lam_scale = np.abs(np.log(np.where(mag > 0, poles, 1.0))) / period
+        # complex log: a real negative pole (z = -0.3) has log|z| + j pi, not NaN
+        lam_scale = np.abs(np.log(np.where(mag > 0, poles, 1.0).astype(complex))) / period
     else:
         period = 0.0
         rates = -poles.real

@@ -406,6 +406,8 @@ def _escalate(
 
 # --------------------------------------------------------------- supporting checks
 def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any]]:
+    from .trade_units import differences_in_trade_units
+
     start = time.perf_counter()
     p, m = sh.g1.shape[1], sh.g1.shape[2]
     scale = sh.scale if sh.scale > 0 else 1.0
@@ -431,6 +433,7 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
             )
     total = _sigma_max(sh.g1 - sh.g2)
     band = _band(sh.grid, total)
+    trade = differences_in_trade_units(sh.grid, sh.g1, sh.g2, scale=sh.scale)
     differing = [c for c in channels if c["differs"]]
     worst = max(channels, key=lambda c: c["relative_difference"]) if channels else None
     summary = (
@@ -453,9 +456,10 @@ def _frequency_grid(sh: _Shared, opts: Options) -> tuple[Evidence, dict[str, Any
         seconds=time.perf_counter() - start,
         summary=summary,
         details={"contour": sh.contour.describe(), "channels": channels, "band_rad_s": band,
-                 "grid_range_rad_s": [float(sh.grid.min(initial=0)), float(sh.grid.max(initial=0))]},
+                 "grid_range_rad_s": [float(sh.grid.min(initial=0)), float(sh.grid.max(initial=0))],
+                 "trade_units": trade},
     )
-    return ev, {"channels": channels, "band": band}
+    return ev, {"channels": channels, "band": band, "trade_units": trade}
 
 
 def _band(grid: NDArray[np.float64], values: NDArray[np.float64]) -> list[float] | None:
@@ -593,10 +597,7 @@ def _static_gains(sh: _Shared, opts: Options) -> Evidence:
         if diff > opts.rtol:
             failing.append("high_frequency")
         results["high_frequency"] = {"first": r1.d.tolist(), "second": r2.d.tolist(), "relative_difference": diff}
-    summary = (
-        "DC gain and high-frequency gain agree" if not failing
-        else f"{' and '.join(n.replace('_', '-') for n in failing)} gain differ(s)"
-    )
+    summary = static_gain_summary(results, failing)
     return Evidence(
         key="static_gains",
         title="DC gain and high-frequency gain",
@@ -611,6 +612,15 @@ def _static_gains(sh: _Shared, opts: Options) -> Evidence:
         summary=summary,
         details=results,
     )
+
+
+def static_gain_summary(results: dict[str, Any], failing: list[str]) -> str:
+    """One sentence on the DC and high-frequency gains, with both values when they differ."""
+    from .trade_units import describe_static_gain
+
+    parts = [describe_static_gain(name, results.get(name, {}), name in failing)
+             for name in ("dc", "high_frequency") if name in results]
+    return "; ".join(parts)
 
 
 def _similarity(sh: _Shared, opts: Options) -> Evidence:
@@ -748,6 +758,12 @@ def _diagnose(sh: _Shared, opts: Options, grid_info: dict[str, Any], markov: Evi
         for c in grid_info["channels"] if c["differs"]
     ]
     diag["band_of_largest_discrepancy_rad_s"] = grid_info["band"]
+    if diag["differing_channels"]:
+        from .trade_units import describe_channel_difference
+
+        sentence = describe_channel_difference(grid_info.get("trade_units"))
+        if sentence:  # the worst channel in dB and degrees, for every diagnosis reader
+            diag["in_db_and_degrees"] = {"sentence": sentence}
     if markov.outcome != "skipped":
         diag["first_differing_markov_parameter"] = markov.details.get("first_differing_index")
     perm = _permutation(sh, opts)
@@ -756,11 +772,41 @@ def _diagnose(sh: _Shared, opts: Options, grid_info: dict[str, Any], markov: Evi
     scale = _channel_scale(sh, opts)
     if scale is not None:
         diag["constant_scale"] = scale
+    reversed_ = _reciprocal_poles(sh)
+    if reversed_ is not None:
+        diag["reversed_coefficients"] = reversed_
     for ev, key in ((poles, "moved_poles"), (zeros, "moved_zeros")):
         moves = _moves(ev.details, opts)
         if moves:
             diag[key] = moves
     return diag
+
+
+RECIPROCAL_POLES_RTOL = 1e-6
+"""Poles of the second model within this relative distance of the reciprocals of the
+reference's poles get the "coefficients in ascending order?" hint."""
+
+
+def _reciprocal_poles(sh: _Shared) -> dict[str, Any] | None:
+    """A hint when the second model's poles are the reciprocals of the reference's, the
+    mark of polynomial coefficients written in ascending instead of descending powers
+    (the roots of a reversed polynomial are the reciprocals of the original's)."""
+    from .matching import match_points
+
+    p1 = sh.min1.realization.poles()
+    p2 = sh.min2.realization.poles()
+    if p1.size == 0 or p1.size != p2.size or np.any(p1 == 0):
+        return None
+    recip = match_points(1.0 / p1, p2)
+    direct = match_points(p1, p2)
+    worst_recip = max((float(pr.relative_distance) for pr in recip.pairs), default=np.inf)
+    worst_direct = max((float(pr.relative_distance) for pr in direct.pairs), default=0.0)
+    if worst_recip > RECIPROCAL_POLES_RTOL or worst_direct <= 1e3 * RECIPROCAL_POLES_RTOL:
+        return None
+    return {"largest_relative_distance": worst_recip,
+            "sentence": "the poles of the second model are the reciprocals of the reference's "
+                        f"(within {worst_recip:.1e}): were its transfer-function coefficients "
+                        "written in ascending instead of descending powers of s or z"}
 
 
 def _moves(details: dict[str, Any], opts: Options) -> list[dict[str, Any]]:
@@ -865,8 +911,9 @@ def compare_pair(
 
     Parameters
     ----------
-    r1, r2 : Realization
-        The reference and the model under audit.
+    r1, r2 : Realization, or a python-control / scipy.signal LTI system
+        The reference and the model under audit (foreign objects are converted by
+        :func:`audit.interop.realization_from_object`).
     options : Options, keyword-only
         Tolerances and budgets.
 
@@ -880,7 +927,10 @@ def compare_pair(
         Different input/output counts, or mixed / different time domains.
     """
     from ._threads import limited_blas_threads
+    from .interop import realization_from_object
 
+    # python-control / scipy.signal systems are accepted too (audit.interop)
+    r1, r2 = realization_from_object(r1), realization_from_object(r2)
     with limited_blas_threads():
         return _compare_pair(r1, r2, options or Options())
 
@@ -965,11 +1015,14 @@ def _explain(verdict: Verdict, decisive: Evidence, diagnosis: dict[str, Any], wa
                  f"(decided in {extended})."]
         if "permutation" in diagnosis:
             parts.append(diagnosis["permutation"]["sentence"].capitalize() + ".")
+        elif "reversed_coefficients" in diagnosis:
+            parts.append(diagnosis["reversed_coefficients"]["sentence"].capitalize() + "?")
         elif "constant_scale" in diagnosis:
             parts.append(diagnosis["constant_scale"]["sentence"].capitalize() + ".")
         elif diagnosis.get("moved_poles"):
             mv = diagnosis["moved_poles"][0]
-            parts.append(f"Largest pole move: {mv.get('first')} -> {mv.get('second')}.")
+            parts.append(f"Largest pole move: {fmt_complex(complex(*mv['first']))} -> "
+                         f"{fmt_complex(complex(*mv['second']))}.")
         return " ".join(parts)
     return (f"Cannot tell whether {label2} and {label1} are equivalent at tolerance {opts.rtol:.1e}: "
             f"{decisive.summary}.")

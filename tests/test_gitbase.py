@@ -74,7 +74,7 @@ def run_check(capsys, repo: Path, *extra: str) -> tuple[int, str, str, ET.Elemen
     junit = repo.parent / "out" / "junit.xml"
     md = repo.parent / "out" / "summary.md"
     code = main(["check", str(repo / "lti-audit.toml"), "--junit", str(junit),
-                 "--markdown", str(md), *extra])
+                 "--markdown", str(md), "--overwrite", *extra])
     out, err = capsys.readouterr()
     return code, out, err, ET.parse(junit).getroot(), md.read_text()
 
@@ -232,10 +232,47 @@ def test_missing_ref_in_shallow_clone_has_clear_message(repo: Path, tmp_path: Pa
     code = main(["check", str(clone / "lti-audit.toml"), "--against", "HEAD~1"])
     err = capsys.readouterr().err
     assert code == 2
-    assert "HEAD~1 not found (this is a shallow clone); in a shallow clone fetch it first, " \
-           "e.g. git fetch --depth=50 origin HEAD~1" in err
+    # a relative ref cannot be fetched by name: deepen the clone instead (git-fetch(1))
+    assert "HEAD~1 not found (this is a shallow clone); deepen the clone first: " \
+           "git fetch --deepen=50" in err
     with pytest.raises(GitBaseError, match="no-such-branch not found"):
         resolve_revision("no-such-branch", cwd=repo)
+
+
+@pytest.mark.parametrize(("ref", "hint"), [
+    ("origin/release-2", "fetch it first: git fetch --depth=50 origin "
+                         "release-2:refs/remotes/origin/release-2"),
+    ("release-2", "git fetch --depth=50 origin release-2:refs/remotes/origin/release-2, then "
+                  "use --against origin/release-2"),
+    ("0123456789abcdef0123456789abcdef01234567",
+     "fetch the commit first: git fetch --depth=50 origin 0123456789abcdef"),
+])
+def test_unknown_ref_suggests_a_fetch_that_fits_it(repo: Path, tmp_path: Path, ref: str,
+                                                   hint: str) -> None:
+    write_model(repo / "m.json", [[-1.0]], [[1.0]], [[1.0]], [[0.0]])
+    commit_all(repo, "model")
+    write_model(repo / "m.json", [[-2.0]], [[1.0]], [[1.0]], [[0.0]])
+    commit_all(repo, "model changed")  # two commits: a depth-1 clone is really shallow
+    git(repo, "branch", "release-2")
+    clone = tmp_path / "shallow"
+    subprocess.run(["git", "clone", "-q", "--depth", "1", "--single-branch", f"file://{repo}",
+                    str(clone)], check=True, capture_output=True)
+    with pytest.raises(GitBaseError) as info:
+        resolve_revision(ref, cwd=clone)
+    assert hint in str(info.value)
+    if ref.startswith("origin/"):
+        # the suggested command really makes the ref resolvable (git itself, no mock)
+        command = hint.split("fetch it first: ")[1].split()
+        subprocess.run([*command[:2], "-q", *command[2:]], cwd=clone, check=True,
+                       capture_output=True)
+        assert len(resolve_revision(ref, cwd=clone)) == 40
+
+
+def test_unknown_ref_without_remote(repo: Path) -> None:
+    write_model(repo / "m.json", [[-1.0]], [[1.0]], [[1.0]], [[0.0]])
+    commit_all(repo, "model")
+    with pytest.raises(GitBaseError, match="no remote to fetch it from"):
+        resolve_revision("origin/main", cwd=repo)
 
 
 def test_not_a_git_repository(tmp_path: Path, git_env: None, monkeypatch, capsys) -> None:

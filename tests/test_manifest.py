@@ -235,6 +235,20 @@ def test_similar_rejects_a_non_minimal_pair_of_equal_order(tmp_path: Path) -> No
     r = evaluate_claims(manifest(tmp_path, claim(["a.json", "b.json"], expect="similar")))
     assert r[0].status == "fails"
     assert "not minimal" in r[0].explanation
+    assert "hidden modes differ (-3 vs -4)" in r[0].explanation  # eigenvalues of A, by construction
+
+
+def test_similar_is_not_decided_when_hidden_modes_agree(tmp_path: Path) -> None:
+    # both order 2 with the same unobservable mode at -3, the second in other coordinates
+    # (x2 = 2 x2): similar in exact arithmetic, but the staircase of the minimal parts
+    # cannot show it, so the claim is reported as not decided, never as failing
+    write_model(tmp_path / "a.json", [[-1.0, 0.0], [0.0, -3.0]], [[1.0], [1.0]], [[1.0, 0.0]],
+                [[0.0]])
+    write_model(tmp_path / "b.json", [[-1.0, 0.0], [0.0, -3.0]], [[1.0], [2.0]], [[1.0, 0.0]],
+                [[0.0]])
+    r = evaluate_claims(manifest(tmp_path, claim(["a.json", "b.json"], expect="similar")))
+    assert r[0].status == "inconclusive"
+    assert "not decided" in r[0].explanation and "FAILS" not in r[0].explanation
 
 
 @settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])

@@ -7,8 +7,9 @@ file changed between the git revision ``REF`` and the working tree (see
 globs and the current directory.
 
 Output: ``--format text|json|junit|markdown`` on stdout; ``--junit FILE``,
-``--markdown FILE`` and ``--json FILE`` also write those reports (atomically, never over
-a model file). Exit status: 0 every claim holds and no changed file changed behaviour;
+``--markdown FILE`` and ``--json FILE`` also write those reports under the tool's output
+rule (:mod:`audit.safe_output`: atomically, never through a symbolic link, never over a
+model file or the manifest, and over an existing report only with ``--overwrite``). Exit status: 0 every claim holds and no changed file changed behaviour;
 1 a claim fails or a file's behaviour changed; 2 invalid input (bad manifest, missing or
 invalid model file, unknown REF) or usage; 3 otherwise inconclusive.
 """
@@ -47,6 +48,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="also write a Markdown summary (merge-request comment) to FILE")
     parser.add_argument("--json", metavar="FILE", default=None,
                         help="also write the JSON report to FILE")
+    parser.add_argument("--overwrite", action="store_true",
+                        help="replace existing --junit/--markdown/--json report files (never "
+                        "a model file, the manifest or a symbolic link)")
     parser.add_argument("--escalation-seconds", type=seconds, default=None,
                         help="extended-precision budget per comparison (0 disables it)")
 
@@ -68,6 +72,12 @@ def run(args: argparse.Namespace) -> int:
         load_claims_manifest,
     )
 
+    from ..ci_outputs import check_report_target
+
+    for option in ("junit", "markdown", "json"):  # refuse before the audits run
+        target = getattr(args, option)
+        if target is not None:
+            check_report_target(target, overwrite=args.overwrite)
     start = time.perf_counter()
     if args.manifest is None and args.against is not None and not Path(DEFAULT_MANIFEST_NAME).exists():
         manifest = default_manifest(Path.cwd())
@@ -106,7 +116,8 @@ def run(args: argparse.Namespace) -> int:
     for option, fmt in (("junit", "junit"), ("markdown", "markdown"), ("json", "json")):
         target = getattr(args, option)
         if target is not None:
-            write_output(target, renderers[fmt](result), protected=protected)
+            write_output(target, renderers[fmt](result), protected=protected,
+                         overwrite=args.overwrite)
     sys.stdout.write(renderers[args.format](result))
     return result.exit_status
 

@@ -44,7 +44,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     import hashlib
-    import os
 
     from ..errors import InvalidModelError
     from ..evidence import DEFAULT_RTOL
@@ -60,14 +59,15 @@ def run(args: argparse.Namespace) -> int:
     from ..verdict import Options, compare_pair
 
     rtol = DEFAULT_RTOL if args.rtol is None else float(args.rtol)
-    if args.output and os.path.exists(args.output):
-        raise InvalidModelError(f"{args.output}: exists already; lti-audit never overwrites a "
-                                "file (choose another -o path or remove it first)")
+    if args.output:
+        from ..safe_output import check_new_output
+
+        check_new_output(args.output, flag="")  # the output rule, checked before any work
     doc = load_model_document(args.model)
     source = realization_from_document(doc)
     source = source.with_name(doc.name)
     conversion = FORMS[args.form](source)
-    new = conversion.realization.with_name(args.name or f"{doc.name} ({args.form} form)")
+    new = conversion.realization.with_name(args.name or f"{doc.name[:170]} ({args.form} form)")
     pair = compare_pair(source, new, options=Options(rtol=rtol))
     decisive = next(e for e in pair.evidence if e.decisive)
     with open(args.model, "rb") as fh:
@@ -101,13 +101,19 @@ def run(args: argparse.Namespace) -> int:
         lines.append(CAUTION)
         sys.stderr.write("\n".join(lines) + "\n")
         return 1 if pair.verdict == "different" else 3
+    claimed, claim_note = _checkable_claim(args.form, new, conversion.details.get("block_sizes"))
+    if claim_note:
+        lines.append(f"  note: {claim_note}")
+    notes = f"lti-audit convert --to {args.form}"
+    if claim_note:
+        notes += f"; {claim_note}"
     signals = {"inputs": [s.model_dump() for s in doc.inputs] if doc.inputs else None,
                "outputs": [s.model_dump() for s in doc.outputs] if doc.outputs else None}
     new_doc = document_from_realization(
         new,
         name=new.name,
-        claimed_form=args.form,  # type: ignore[arg-type]
-        provenance={"source": args.model, "notes": f"lti-audit convert --to {args.form}"},
+        claimed_form=claimed,  # type: ignore[arg-type]
+        provenance={"source": args.model, "notes": notes},
         certificate=certificate,
         signals=signals,
     )
@@ -117,8 +123,6 @@ def run(args: argparse.Namespace) -> int:
         except FileExistsError:
             raise InvalidModelError(f"{args.output}: exists already; lti-audit never "
                                     "overwrites a file") from None
-        except OSError as exc:
-            raise InvalidModelError(f"{args.output}: cannot write ({exc.strerror})") from None
         lines.append(f"  written to {args.output}")
         lines.append(CAUTION)
         sys.stdout.write("\n".join(lines) + "\n")
@@ -127,3 +131,31 @@ def run(args: argparse.Namespace) -> int:
         lines.append(CAUTION)
         sys.stderr.write("\n".join(lines) + "\n")
     return 0
+
+
+# forms whose claim `inspect` and `check` verify by pattern (audit.forms.check_claimed_form);
+# the Kalman and staircase forms rest on rank decisions a pattern check cannot repeat
+PATTERN_CHECKED_FORMS = ("controllable_companion", "observable_companion", "modal", "jordan",
+                         "balanced")
+
+
+def _checkable_claim(form: str, new: object, sizes: object) -> tuple[str | None, str]:
+    """The ``claimed_form`` to write (only one that lti-audit itself confirms) and a note."""
+    from ..forms import check_claimed_form
+
+    if form not in PATTERN_CHECKED_FORMS:
+        return None, (f"no claimed_form written: the {form} form rests on rank decisions that "
+                      "a pattern check cannot confirm" + (f" (block sizes {_sizes(sizes)})" if sizes else ""))
+    check = check_claimed_form(new, form)  # type: ignore[arg-type]
+    if check.holds:
+        return form, ""
+    return None, (f"no claimed_form written: the produced matrices do not pass lti-audit's own "
+                  f"{form} pattern check ({'; '.join(check.deviations[:2]) or check.variant})")
+
+
+def _sizes(sizes: object) -> str:
+    if isinstance(sizes, dict):
+        return ", ".join(f"{k} {v}" for k, v in sizes.items())
+    if isinstance(sizes, (list, tuple)):
+        return ", ".join(str(v) for v in sizes)
+    return str(sizes)

@@ -120,10 +120,14 @@ def run(args: argparse.Namespace) -> int:
             sys.stdout.write(f"{name}\t{p.description}\n")
         return 0
     out = Path(args.out)
-    problem = _prepare_out(out, args.replace)
-    if problem:
-        sys.stderr.write(f"lti-audit: error: --out: {problem}\n")
-        return 2
+    from ..safe_output import new_output_directory
+
+    if args.replace:
+        problem = _remove_previous_campaign(out)
+        if problem:
+            sys.stderr.write(f"lti-audit: error: --out: {problem}\n")
+            return 2
+    new_output_directory(out, flag="--replace")  # a fresh or empty folder: campaigns never mix
     if args.merge:
         reports = []
         for d in args.merge:
@@ -160,21 +164,16 @@ def run(args: argparse.Namespace) -> int:
     return 1 if _failures(report) else 0
 
 
-def _prepare_out(out: Path, replace: bool) -> str | None:
-    """Refuse a non-empty output folder (stale counterexamples must not mix with new ones).
+def _remove_previous_campaign(out: Path) -> str | None:
+    """``--replace``: delete ``out`` if it holds a previous campaign (a ``campaign.json``).
 
-    With ``replace``, a folder that holds a previous campaign (a ``campaign.json``) is
-    deleted first; any other non-empty folder is refused. Returns the problem, or None.
+    Any other non-empty folder is refused (returns the problem); links and files are left
+    to the output rule (:func:`audit.safe_output.new_output_directory`) to refuse.
     """
     import shutil
 
-    if out.exists() and not out.is_dir():
-        return f"{out} exists and is not a folder"
-    if not out.is_dir() or not any(out.iterdir()):
+    if out.is_symlink() or not out.is_dir() or not any(out.iterdir()):
         return None
-    if not replace:
-        return (f"{out} is not empty; choose a new folder, or add --replace to delete the "
-                "previous campaign's report there")
     if not (out / "campaign.json").is_file():
         return (f"{out} is not empty and holds no campaign.json: --replace deletes only a "
                 "previous campaign's report folder")

@@ -50,11 +50,17 @@ def run(args: argparse.Namespace) -> int:
             records = list_tokens(session)
             if args.format == "json":
                 sys.stdout.write(json.dumps(records, indent=2) + "\n")
+            elif not records:
+                sys.stdout.write("no tokens yet (create one with: lti-audit token create ...)\n")
             else:
-                for r in records:
-                    state = "revoked " + r["revoked_at"] if r["revoked_at"] else "active"
-                    sys.stdout.write(f"{r['id']:>4}  {r['prefix']}...  {r['role']:<8}  "
-                                     f"{r['supplier'] or '-':<20}  {r['holder']}  {state}\n")
+                rows = [(str(r["id"]), f"{r['prefix']}...", r["role"], r["supplier"] or "-",
+                         r["holder"], "revoked " + r["revoked_at"] if r["revoked_at"] else "active")
+                        for r in records]
+                header = ("id", "token starts", "role", "supplier", "holder", "state")
+                widths = [max(len(row[k]) for row in [header, *rows]) for k in range(5)]
+                for row in [header, *rows]:
+                    sys.stdout.write(f"{row[0]:>{widths[0]}}  " + "  ".join(
+                        f"{row[k]:<{widths[k]}}" for k in range(1, 5)) + f"  {row[5]}\n")
             return 0
         rec = revoke_token(session, args.id)
         sys.stdout.write(f"revoked token id {rec['id']} ({rec['holder']}) at {rec['revoked_at']}\n")

@@ -209,6 +209,30 @@ def _responses(*codes: int, explicit_json: bool = False) -> dict[int | str, dict
 
 
 # ------------------------------------------------------------------ middleware
+#: Sent with every response: the report page is self-contained (inline style, data: images),
+#: so nothing else may load, run, be framed or submit (W3C Content Security Policy Level 3).
+CONTENT_SECURITY_POLICY = (b"default-src 'none'; img-src data:; style-src 'unsafe-inline'; "
+                           b"base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
+
+
+class _SecurityHeaders:
+    """Pure ASGI middleware adding the Content-Security-Policy to every response."""
+
+    def __init__(self, app: Any) -> None:
+        self.app = app
+
+    async def __call__(self, scope: dict[str, Any], receive: Any, send: Any) -> None:
+        async def send_with_headers(message: dict[str, Any]) -> None:
+            if message["type"] == "http.response.start":
+                message.setdefault("headers", [])
+                message["headers"] = [*message["headers"],
+                                      (b"content-security-policy", CONTENT_SECURITY_POLICY),
+                                      (b"x-content-type-options", b"nosniff")]
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers if scope["type"] == "http" else send)
+
+
 class _Guard:
     """Pure ASGI middleware: request-size limit (413) and the last-resort 500 handler.
 
@@ -414,6 +438,7 @@ def create_app(
     app.state.max_order = max_order
     app.state.dispatcher = dispatcher
     app.add_middleware(_Guard, max_body_bytes=max_body_bytes)
+    app.add_middleware(_SecurityHeaders)  # outside the guard: its 413/500 answers get it too
     bearer = HTTPBearer(auto_error=False, description="API token from `lti-audit token create`")
 
     # ------------------------------------------------------------ error handlers

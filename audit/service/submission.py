@@ -207,6 +207,10 @@ def _realization(doc_data: dict[str, Any], source: str, max_order: int) -> tuple
     from ..loading import parse_model_document, realization_from_document
 
     doc = parse_model_document(doc_data, source=source)
+    if doc.stated_order > max_order:  # checked on the document, before any conversion
+        raise InvalidModelError(
+            f"has order {doc.stated_order} as written, above this service's limit "
+            f"max_order={max_order}", field=source, source=source)
     r = realization_from_document(doc)
     if r.order > max_order:
         raise InvalidModelError(
