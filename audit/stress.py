@@ -773,7 +773,8 @@ def _dask_client(workers: int, scheduler: str | None) -> Iterator[Any]:
             client.close()
         return
     with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                      host="127.0.0.1", dashboard_address=None) as cluster, \
+                      host="127.0.0.1", dashboard_address="127.0.0.1:0",
+                      worker_dashboard_address="127.0.0.1:0") as cluster, \
             Client(cluster, set_as_default=False) as client:
         yield client
 

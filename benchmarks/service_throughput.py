@@ -68,14 +68,16 @@ class Cluster:
         self.logs = logs
         self.address = f"tcp://127.0.0.1:{free_port()}"
         port = self.address.rsplit(":", 1)[1]
-        self.procs = [self._spawn("scheduler", [str(BIN / "dask"), "scheduler", "--host",
-                                                "127.0.0.1", "--port", port, "--no-dashboard"])]
+        self.procs = [self._spawn("scheduler", [
+            str(BIN / "dask"), "scheduler", "--host", "127.0.0.1", "--port", port,
+            "--no-dashboard", "--dashboard-address", "127.0.0.1:0"])]  # loopback only
         self.workers: dict[str, subprocess.Popen[Any]] = {}
         for k in range(workers):
             name = f"w{k}"
             self.workers[name] = self._spawn(name, [
                 str(BIN / "dask"), "worker", self.address, "--nthreads", "1", "--no-nanny",
-                "--no-dashboard", "--host", "127.0.0.1", "--name", name])
+                "--no-dashboard", "--dashboard-address", "127.0.0.1:0", "--host", "127.0.0.1",
+                "--name", name])
             self.procs.append(self.workers[name])
         self.wait(workers)
 

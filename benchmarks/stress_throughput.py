@@ -55,7 +55,8 @@ def main() -> None:
         cluster = None
         if workers > 1:
             cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                   host="127.0.0.1", dashboard_address=None)
+                                   host="127.0.0.1", dashboard_address="127.0.0.1:0",
+                                   worker_dashboard_address="127.0.0.1:0")
             scheduler = cluster.scheduler_address
         if scheduler:
             with Client(scheduler, set_as_default=False) as client:

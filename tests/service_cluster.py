@@ -28,7 +28,8 @@ def inproc_scheduler() -> str:
             from distributed import LocalCluster
 
             _CLUSTER = LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
-                                    dashboard_address=None)
+                                    dashboard_address="127.0.0.1:0",
+                                    worker_dashboard_address="127.0.0.1:0")
             atexit.register(_close)
         return str(_CLUSTER.scheduler_address)
 

@@ -73,9 +73,9 @@ class DaskProcesses:
         self.log_dir = log_dir
         self.procs: list[subprocess.Popen[Any]] = []
         self.workers: dict[str, subprocess.Popen[Any]] = {}
-        self.procs.append(self._spawn("scheduler", [str(BIN / "dask"), "scheduler", "--host",
-                                                    "127.0.0.1", "--port", str(self.port),
-                                                    "--no-dashboard"]))
+        self.procs.append(self._spawn("scheduler", [
+            str(BIN / "dask"), "scheduler", "--host", "127.0.0.1", "--port", str(self.port),
+            "--no-dashboard", "--dashboard-address", "127.0.0.1:0"]))  # loopback only
 
     def _spawn(self, name: str, argv: list[str]) -> subprocess.Popen[Any]:
         log = open(self.log_dir / f"{name}.log", "wb")  # noqa: SIM115 - closed with the process
@@ -83,9 +83,10 @@ class DaskProcesses:
                                 start_new_session=True)
 
     def start_worker(self, name: str) -> None:
-        proc = self._spawn(name, [str(BIN / "dask"), "worker", self.address, "--nthreads", "1",
-                                  "--no-nanny", "--no-dashboard", "--host", "127.0.0.1",
-                                  "--name", name])
+        proc = self._spawn(name, [
+            str(BIN / "dask"), "worker", self.address, "--nthreads", "1", "--no-nanny",
+            "--no-dashboard", "--dashboard-address", "127.0.0.1:0", "--host", "127.0.0.1",
+            "--name", name])
         self.procs.append(proc)
         self.workers[name] = proc
 

@@ -254,7 +254,8 @@ def connect_cluster(scheduler: str | None, local_workers: int | None,
         return Client(scheduler, timeout=30, set_as_default=False), None
     where = {"host": "127.0.0.1"} if local_processes else {}  # threads: in-process comms
     cluster = LocalCluster(n_workers=local_workers or _cpu_count(), threads_per_worker=1,
-                           processes=local_processes, dashboard_address=None, **where)
+                           processes=local_processes, dashboard_address="127.0.0.1:0",
+                           worker_dashboard_address="127.0.0.1:0", **where)
     return Client(cluster, set_as_default=False), cluster
 
 
