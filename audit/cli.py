@@ -90,6 +90,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_INVALID
     from .errors import AuditError
 
+    if args.command in ("compare", "inspect", "convert", "check"):
+        from ._threads import set_audit_threads
+
+        set_audit_threads()  # one audit at a time: its large factorizations may use every core
     try:
         if args.command == "compare":
             return _compare(args)

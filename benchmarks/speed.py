@@ -2,7 +2,7 @@
 
 Usage::
 
-    python benchmarks/speed.py [--quick] [--repeat R]
+    python benchmarks/speed.py [--quick] [--repeat R] [--case-budget S] [--ladder-only]
 
 (a) a 100-state SISO claimed-equivalent pair audited end to end
     (:func:`audit.verdict.compare_pair`), median wall-clock time;
@@ -15,7 +15,18 @@ Usage::
     the building blocks (minimal_realization, peak_gain, TransferEvaluator at 1000
     points, markov_parameters, similarity_transform_between) for orders 10..200, SISO
     and 4x4;
-(d) start-up time of ``lti-audit --help`` (subprocess) and which heavy modules it loads.
+(d) start-up time of ``lti-audit --help`` (subprocess) and which heavy modules it loads;
+(e) a size ladder (SISO, 3x3, 10x10; 50 to 1500 states): each pair audited end to end in
+    its own subprocess (wall-clock, CPU time, peak resident memory, verdict), equivalent
+    by an exact change of coordinates (states scaled by powers of two and permuted) and
+    different by one pole moved by 1e-3 of its modulus; a series stops climbing when a
+    case exceeds ``--case-budget`` seconds;
+(f) the published benchmark models in ``benchmarks/data`` (Chahlaoui and Van Dooren,
+    SLICOT Working Note 2002-2): the same audits, and the frequency response on the
+    adaptive grid against python-control's, timed in the same run (CPU seconds, one
+    BLAS thread each), both checked against a python-flint ball evaluation of the stored
+    matrices whose precision is raised until the radius is below 1e-20 of the value
+    (pointwise error relative to the local value).
 
 Timings are wall-clock on whatever machine runs this; they are noisy when other
 processes compete for the cores.
@@ -239,6 +250,236 @@ def render(a: dict[str, Any], b: dict[str, Any], c: list[dict[str, Any]], d: dic
     return "\n".join(lines)
 
 
+# ----------------------------------------------------------------------- (e) / (f)
+DATA = Path(__file__).resolve().parent / "data"
+PUBLISHED = ["build48", "cdplayer120", "heat200", "iss270"]
+
+
+def _exact_coordinate_change(r: Realization, seed: int, name: str) -> Realization:
+    """States scaled by powers of two and permuted: exact in doubles, same system."""
+    rng = np.random.default_rng(seed)
+    n = r.order
+    s = 2.0 ** rng.integers(-4, 5, n)
+    p = rng.permutation(n)
+    a = (r.a * s[:, None] / s[None, :])[np.ix_(p, p)]
+    return Realization.from_arrays(a, (r.b * s[:, None])[p], (r.c / s[None, :])[:, p], r.d,
+                                   r.sample_period, name=name)
+
+
+def ladder_pair(n: int, io: tuple[int, int], kind: str, seed: int = 11) -> tuple[Realization, Realization]:
+    """A dense random reference (poles over 4 decades, damping 1e-2..0.7, rotated by a random
+    orthogonal matrix) and its equivalent or different partner."""
+    rng = np.random.default_rng([seed, n, io[0], io[1]])
+    poles = cs.random_poles(rng, n, spread_decades=4.0, damping=(1e-2, 0.7))
+    modal = cs.reference_model(rng, poles, inputs=io[0], outputs=io[1], name="reference")
+    q, _ = np.linalg.qr(rng.standard_normal((n, n)))
+    def rotated(a: np.ndarray, name: str) -> Realization:
+        return Realization.from_arrays(q.T @ a @ q, q.T @ modal.b, modal.c @ q, modal.d, name=name)
+    ref = rotated(modal.a, "reference")
+    if kind == "equivalent":
+        return ref, _exact_coordinate_change(ref, seed + n, "claimed")
+    moved = list(poles)
+    j = int(np.argmin([abs(p.real) / max(abs(p), 1e-300) for p in moved]))  # most lightly damped
+    moved[j] = moved[j] * (1 + 1e-3)
+    a2 = cs.block_diagonal_state_matrix(moved)
+    return ref, rotated(a2, "claimed")
+
+
+def published_pair(name: str, kind: str) -> tuple[Realization, Realization]:
+    from audit.loading import load_realization
+
+    r = load_realization(DATA / f"{name}.json").with_name(name)
+    if kind == "equivalent":
+        return r, _exact_coordinate_change(r, 7, name + " (rescaled, permuted)")
+    a = np.array(r.a)
+    i = int(np.argmax(np.abs(np.diag(a)) > 0))
+    a[i, i] *= 1 + 1e-3  # a small move of the state matrix: a few poles move
+    return r, Realization.from_arrays(a, r.b, r.c, r.d, r.sample_period, name=name + " (moved)")
+
+
+def _case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
+    import resource
+
+    from audit._threads import set_audit_threads
+    from audit.verdict import compare_pair
+
+    set_audit_threads()  # as the command line does for one audit
+    if spec["source"] == "ladder":
+        r1, r2 = ladder_pair(spec["n"], tuple(spec["io"]), spec["kind"])
+    else:
+        r1, r2 = published_pair(spec["name"], spec["kind"])
+    wall, cpu = time.perf_counter(), time.process_time()
+    pc = compare_pair(r1, r2)
+    wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
+    decisive = next(e for e in pc.evidence if e.decisive)
+    return {"verdict": pc.verdict, "seconds": wall, "cpu_seconds": cpu,
+            "decisive_seconds": decisive.seconds,
+            "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0,
+            "load": os.getloadavg()[0]}
+
+
+def run_case(spec: dict[str, Any], budget: float) -> dict[str, Any]:
+    """One audit in a fresh subprocess (so that peak memory is per case)."""
+    import json
+
+    code = (f"import json, sys; sys.path.insert(0, {str(Path(__file__).resolve().parent)!r}); "
+            f"import speed; print(json.dumps(speed._case_in_process({spec!r})))")
+    try:
+        res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                             timeout=budget, check=False)
+    except subprocess.TimeoutExpired:
+        return {"verdict": f"not finished within {budget:.0f} s", "seconds": float("nan")}
+    try:
+        return json.loads(res.stdout.strip().splitlines()[-1])
+    except (ValueError, IndexError):
+        return {"verdict": "failed: " + (res.stderr.strip().splitlines() or ["?"])[-1][:80],
+                "seconds": float("nan")}
+
+
+def size_ladder(orders: list[int], ios: list[tuple[int, int]], budget: float) -> list[dict[str, Any]]:
+    rows = []
+    for io in ios:
+        for kind in ("equivalent", "different"):
+            stopped = None
+            for n in orders:
+                row: dict[str, Any] = {"io": f"{io[1]}x{io[0]}", "n": n, "kind": kind}
+                if stopped is not None:
+                    row.update(verdict=f"not run ({stopped})", seconds=float("nan"))
+                else:
+                    row.update(run_case({"source": "ladder", "n": n, "io": list(io), "kind": kind}, budget))
+                    if not (row["seconds"] <= budget / 3):
+                        stopped = f"n = {n} took {row['seconds']:.0f} s" if row["seconds"] == row["seconds"] \
+                            else f"n = {n} did not finish"
+                rows.append(row)
+    return rows
+
+
+def _flint_reference(r: Realization, omegas: np.ndarray, target: float = 1e-20) -> np.ndarray:
+    """G(j omega) of the stored matrices in ball arithmetic, precision raised until the
+    radius is below ``target`` times the value (python-flint acb_mat.solve)."""
+    import flint
+
+    out = []
+    old = flint.ctx.prec
+    try:
+        for w in omegas:
+            prec = 128
+            while True:
+                flint.ctx.prec = prec
+                n = r.order
+                m = flint.acb_mat(n, n, [flint.acb(-float(v)) for v in r.a.ravel()])
+                for i in range(n):
+                    m[i, i] += flint.acb(0, float(w))
+                b = flint.acb_mat(n, r.n_inputs, [flint.acb(float(v)) for v in r.b.ravel()])
+                c = flint.acb_mat(r.n_outputs, n, [flint.acb(float(v)) for v in r.c.ravel()])
+                d = flint.acb_mat(r.n_outputs, r.n_inputs, [flint.acb(float(v)) for v in r.d.ravel()])
+                try:
+                    g = c * m.solve(b) + d
+                    mid = np.array([complex(float(z.real.mid()), float(z.imag.mid())) for z in g.entries()])
+                    rad = np.array([float(z.real.rad()) + float(z.imag.rad()) for z in g.entries()])
+                    done = np.linalg.norm(rad) <= target * np.linalg.norm(mid)
+                except ZeroDivisionError:
+                    done = False
+                if done or prec >= 8192:
+                    out.append(mid.reshape(r.n_outputs, r.n_inputs))
+                    break
+                prec *= 2
+    finally:
+        flint.ctx.prec = old
+    return np.array(out)
+
+
+def response_race(r: Realization, *, check_points: int, repeat: int) -> dict[str, Any]:
+    """Our frequency response against python-control's on the adaptive grid of ``r``."""
+    import control
+    from threadpoolctl import threadpool_limits
+
+    from audit.frequency import TransferEvaluator, adaptive_frequency_grid
+
+    grid = adaptive_frequency_grid([r])
+    sys_ = control.StateSpace(r.a, r.b, r.c, r.d)
+    p, m = r.n_outputs, r.n_inputs
+
+    def ours() -> np.ndarray:
+        return TransferEvaluator(r).at(1j * grid) if r.order else np.zeros(0)
+
+    def theirs() -> np.ndarray:
+        resp = sys_.frequency_response(grid)
+        return np.moveaxis(np.asarray(resp.frdata).reshape(p, m, grid.size), 2, 0)
+
+    def cpu_median(fn: Callable[[], Any]) -> tuple[float, Any]:
+        times, out = [], None
+        for _ in range(repeat):
+            from audit import frequency as fr
+
+            fr._EVALUATOR_CACHE.clear()  # time the reductions too
+            t0 = time.process_time()
+            out = fn()
+            times.append(time.process_time() - t0)
+        return statistics.median(times), out
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        t_ours, g_ours = cpu_median(ours)
+        t_ctrl, g_ctrl = cpu_median(theirs)
+    row: dict[str, Any] = {"points": int(grid.size), "ours_cpu": t_ours, "control_cpu": t_ctrl,
+                           "speed_ratio": t_ctrl / t_ours if t_ours > 0 else float("nan")}
+    if check_points:
+        idx = np.unique(np.linspace(0, grid.size - 1, check_points).round().astype(int))
+        ref = _flint_reference(r, grid[idx])
+        norm = np.linalg.norm(ref, 2, axis=(1, 2))
+        ok = norm > 0
+        e_o = np.linalg.norm(g_ours[idx] - ref, 2, axis=(1, 2))[ok] / norm[ok]
+        e_c = np.linalg.norm(g_ctrl[idx] - ref, 2, axis=(1, 2))[ok] / norm[ok]
+        row.update(checked=int(ok.sum()), ours_max=float(e_o.max()), control_max=float(e_c.max()),
+                   ours_median=float(np.median(e_o)), control_median=float(np.median(e_c)),
+                   smallest_gain=float(norm[ok].min()))
+    return row
+
+
+def published(names: list[str], budget: float, *, check_points: int, repeat: int) -> list[dict[str, Any]]:
+    from audit.loading import load_realization
+
+    rows = []
+    for name in names:
+        r = load_realization(DATA / f"{name}.json")
+        row: dict[str, Any] = {"model": name, "n": r.order, "io": f"{r.n_outputs}x{r.n_inputs}"}
+        for kind in ("equivalent", "different"):
+            row[kind] = run_case({"source": "published", "name": name, "kind": kind}, budget)
+        row["response"] = response_race(r, check_points=check_points, repeat=repeat)
+        rows.append(row)
+    return rows
+
+
+def _fmt_s(x: Any) -> str:
+    return "-" if not isinstance(x, (int, float)) or x != x else f"{x:.2f}"
+
+
+def render_ladder(ladder: list[dict[str, Any]], pub: list[dict[str, Any]]) -> str:
+    lines = ["(e) size ladder: compare_pair end to end, one subprocess per pair "
+             "(wall s / CPU s / peak resident MiB / verdict; 1-minute load average at the end)", "",
+             "| io | n | pair | wall s | CPU s | peak gain of G1-G2 s | peak MiB | load | verdict |",
+             "|---|---|---|---|---|---|---|---|---|"]
+    for r in ladder:
+        lines.append(f"| {r['io']} | {r['n']} | {r['kind']} | {_fmt_s(r.get('seconds'))} | "
+                     f"{_fmt_s(r.get('cpu_seconds'))} | {_fmt_s(r.get('decisive_seconds'))} | "
+                     f"{r.get('peak_rss_mib', float('nan')):.0f} | {_fmt_s(r.get('load'))} | {r['verdict']} |")
+    lines += ["", "(f) published models (Chahlaoui and Van Dooren, SLICOT Working Note 2002-2): "
+              "audits, and the frequency response on the adaptive grid against python-control "
+              "(CPU seconds, one BLAS thread; pointwise error relative to |G| against python-flint)", "",
+              "| model | n | io | equivalent pair: wall s / verdict | moved pair: wall s / verdict | "
+              "points | ours CPU s | python-control CPU s | ratio | max rel. error ours / control | "
+              "median ours / control | smallest abs(G) checked |",
+              "|---|---|---|---|---|---|---|---|---|---|---|---|"]
+    for r in pub:
+        e, d, f = r["equivalent"], r["different"], r["response"]
+        err = (f"{f['ours_max']:.1e} / {f['control_max']:.1e}", f"{f['ours_median']:.1e} / {f['control_median']:.1e}",
+               f"{f['smallest_gain']:.1e}") if "ours_max" in f else ("-", "-", "-")
+        lines.append(f"| {r['model']} | {r['n']} | {r['io']} | {_fmt_s(e.get('seconds'))} / {e['verdict']} | "
+                     f"{_fmt_s(d.get('seconds'))} / {d['verdict']} | {f['points']} | {f['ours_cpu']:.4f} | "
+                     f"{f['control_cpu']:.4f} | {f['speed_ratio']:.1f}x | {err[0]} | {err[1]} | {err[2]} |")
+    return "\n".join(lines)
+
+
 def frequency_race_single_thread(n: int, points: int, repeat: int, check_points: int) -> dict[str, Any] | None:
     """(b) again in a subprocess with OMP_NUM_THREADS=OPENBLAS_NUM_THREADS=1."""
     import json
@@ -257,7 +498,21 @@ def frequency_race_single_thread(n: int, points: int, repeat: int, check_points:
         return None
 
 
-def run(*, quick: bool, repeat: int) -> tuple[dict[str, Any], str]:
+LADDER_ORDERS = [50, 100, 200, 350, 700, 1000, 1500]
+LADDER_IOS = [(1, 1), (3, 3), (10, 10)]
+
+
+def run(*, quick: bool, repeat: int, case_budget: float = 600.0,
+        ladder_only: bool = False) -> tuple[dict[str, Any], str]:
+    if quick:
+        ladder = size_ladder([8], [(1, 1)], case_budget)
+        pub = published(["build48"], case_budget, check_points=3, repeat=1)
+    else:
+        ladder = size_ladder(LADDER_ORDERS, LADDER_IOS, case_budget)
+        pub = published(PUBLISHED, case_budget, check_points=25, repeat=repeat)
+    ladder_text = render_ladder(ladder, pub)
+    if ladder_only:
+        return {"ladder": ladder, "published": pub}, ladder_text
     if quick:
         a = end_to_end(8, 1)
         b = frequency_response_race(20, 100, 1, 5)
@@ -269,17 +524,23 @@ def run(*, quick: bool, repeat: int) -> tuple[dict[str, Any], str]:
         b["single_thread"] = frequency_race_single_thread(200, 1000, repeat, 20)
         c = scaling([10, 25, 50, 100, 200], [(1, 1), (4, 4)], audit_max_order=200)
         d = startup(5)
-    result = {"end_to_end": a, "frequency_response": b, "scaling": c, "startup": d}
-    return result, render(a, b, c, d)
+    result = {"end_to_end": a, "frequency_response": b, "scaling": c, "startup": d,
+              "ladder": ladder, "published": pub}
+    return result, render(a, b, c, d) + "\n\n" + ladder_text
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--quick", action="store_true", help="tiny sizes (seconds)")
     parser.add_argument("--repeat", type=int, default=3, help="repetitions for medians (full run)")
+    parser.add_argument("--case-budget", type=float, default=600.0,
+                        help="seconds allowed per ladder audit; a series stops climbing after a "
+                        "case uses a third of it")
+    parser.add_argument("--ladder-only", action="store_true", help="only tables (e) and (f)")
     args = parser.parse_args(argv)
     start = time.perf_counter()
-    _, text = run(quick=args.quick, repeat=args.repeat)
+    _, text = run(quick=args.quick, repeat=args.repeat, case_budget=args.case_budget,
+                  ladder_only=args.ladder_only)
     print(text)
     print(f"\ntotal wall-clock {time.perf_counter() - start:.1f} s")
     return 0

@@ -114,9 +114,15 @@ def test_speed_quick_prints_tables(capsys: pytest.CaptureFixture[str]) -> None:
     speed = _load("speed")
     assert speed.main(["--quick"]) == 0
     out = capsys.readouterr().out
-    for heading in ("(a) compare_pair", "(b) frequency response", "(c) time", "(d) start-up"):
+    for heading in ("(a) compare_pair", "(b) frequency response", "(c) time", "(d) start-up",
+                    "(e) size ladder", "(f) published models"):
         assert heading in out
     assert "| audit.frequency.frequency_response |" in out
+    # the quick ladder: an 8-state pair equivalent by an exact change of coordinates and
+    # one with a pole moved by 1e-3 (construction), and the published 48-state model
+    assert "| 1x1 | 8 | equivalent |" in out and out.count("| equivalent |") >= 1
+    assert "| 1x1 | 8 | different |" in out
+    assert "| build48 | 48 | 1x1 | " in out and "/ equivalent |" in out and "/ different |" in out
 
 
 def test_speed_frequency_race_accuracy() -> None:
