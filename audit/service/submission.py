@@ -51,7 +51,7 @@ import hashlib
 import json
 import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Literal
 
 import numpy as np
@@ -638,13 +638,19 @@ def compared_models(ps: ParsedSubmission) -> tuple[list[Realization], list[str]]
     return unique, sources
 
 
-def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
+def run_audit(ps: ParsedSubmission, tol: Tolerances, *,
+              time_budget: float | None = None) -> AuditOutcome:
     """Compare the models and check the claims of a parsed submission.
 
     Parameters
     ----------
     ps : ParsedSubmission
     tol : Tolerances
+    time_budget : float or None, keyword-only
+        Seconds this audit may take (``None``: no limit). The budget is checked before
+        each model pair and before the claims, and each pair's extended-precision budget
+        is capped by the time left; once it is spent, the remaining pairs are not
+        compared, the verdict is ``inconclusive`` and ``report["time_budget"]`` says why.
 
     Returns
     -------
@@ -665,9 +671,23 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
     """
     from ..evidence import to_jsonable
     from ..report import CAUTION, compare_report, package_version
-    from ..verdict import Options, compare_models, overall_verdict
+    from ..verdict import Options, compare_pair, overall_verdict
 
     start = time.perf_counter()
+    deadline = None if time_budget is None else start + time_budget
+    budget_note: dict[str, Any] | None = None if time_budget is None else {
+        "seconds": time_budget, "exceeded": False, "reason": None}
+
+    def spent(what: str) -> bool:
+        if deadline is None or time.perf_counter() < deadline or budget_note is None:
+            return False
+        if not budget_note["exceeded"]:
+            budget_note.update(exceeded=True, reason=(
+                f"time budget of {time_budget:g} s spent before {what}; the audit is "
+                "inconclusive (resubmit with fewer or smaller models, or ask the operator "
+                "for a larger job budget)"))
+        return True
+
     compared, sources = compared_models(ps)
     compare_data = None
     verdict = "not_compared"
@@ -676,16 +696,31 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
                           escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol,
                           **_stated_tolerances(ps, tol, compared[0]))
         t0 = time.perf_counter()
-        pairs = compare_models(compared, options=options)
-        verdict = overall_verdict(pairs)
-        compare_data = compare_report(compared, sources, pairs, options, verdict,
-                                      time.perf_counter() - t0,
-                                      accepted_reason=ps.submission.accept_hidden_instability)
-    claims = _check_claims(ps, tol) + _internal_stability_claims(ps, tol)
+        pairs = []
+        for k, other in enumerate(compared[1:], start=1):
+            if spent(f"comparing {sources[k]} ({k} of {len(compared) - 1} comparisons)"):
+                break
+            opts = options
+            if deadline is not None and options.escalate:
+                left = max(0.0, deadline - time.perf_counter())
+                opts = replace(options, escalation_seconds=min(options.escalation_seconds, left))
+            pairs.append(compare_pair(compared[0], other, options=opts))
+        done = compared[:len(pairs) + 1]
+        verdict = overall_verdict(pairs) if pairs else "inconclusive"
+        if len(pairs) < len(compared) - 1 and verdict != "different":
+            verdict = "inconclusive"
+        if pairs:
+            compare_data = compare_report(done, sources[:len(done)], pairs, options, verdict,
+                                          time.perf_counter() - t0,
+                                          accepted_reason=ps.submission.accept_hidden_instability)
+        compared = done
+    claims = [] if spent("checking the claims") else (_check_claims(ps, tol) + _internal_stability_claims(ps, tol))
     claims_outcome = _claims_outcome(claims)
     failing = [c for c in claims if c["outcome"] != "holds"]
     summary = (compare_data["summary"] if compare_data else
                "No comparison: one model and no reference.")
+    if budget_note is not None and budget_note["exceeded"]:
+        summary = f"Inconclusive: {budget_note['reason']}. " + (summary if compare_data else "")
     if claims:
         summary += (f" Claims: {len(claims) - len(failing)} of {len(claims)} hold"
                     + (f"; first problem: {failing[0]['model']}: {failing[0]['claim']}: "
@@ -703,6 +738,7 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
         "comparison": compare_data,
         "claims": claims,
         "seconds": round(seconds, 6),
+        "time_budget": budget_note,
         "caution": CAUTION,
     })
     return AuditOutcome(verdict, claims_outcome, report, compare_data, tuple(compared),
