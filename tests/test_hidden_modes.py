@@ -123,8 +123,8 @@ def test_dual_example_is_uncontrollable(c3: float) -> None:
     assert (m.classification, m.kind, m.stability) == ("hidden", "uncontrollable", "unstable")
     # independent: mpmath SVD of the controllability matrix [B, AB, A^2 B] (50 digits)
     a, b = np.asarray(r.a), np.asarray(r.b)
-    ctrb = np.hstack([np.linalg.matrix_power(a, k) @ b for k in range(3)])
-    assert mp_relative_singular_values(ctrb)[-1] < 1e-10
+    controllability_matrix = np.hstack([np.linalg.matrix_power(a, k) @ b for k in range(3)])
+    assert mp_relative_singular_values(controllability_matrix)[-1] < 1e-10
     assert slycot_minimal_order(r) == 2  # independent: slycot TB01PD
 
 

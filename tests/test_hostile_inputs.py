@@ -194,7 +194,7 @@ _TF_BAD = [
     {"numerator": [[1.0]], "denominator": [[[1.0, 1.0]]]},               # not a table
     {"numerator": [], "denominator": []},                                # empty tables
 ]
-_ZPK_BAD = [
+_ZEROS_POLES_GAIN_BAD = [
     {"zeros": [[[]]], "poles": [[[[-1.0, 2.0]]]], "gain": [[1.0]]},        # unpaired
     {"zeros": [[[[-1.0]]]], "poles": [[[[-1.0, 0.0]]]], "gain": [[1.0]]},  # not a pair
     {"zeros": [[[[-1.0, 0.0], [-2.0, 0.0]]]], "poles": [[[[-1.0, 0.0]]]], "gain": [[1.0]]},
@@ -217,8 +217,8 @@ def _model_documents() -> list[Case]:
     for k, tf in enumerate(_TF_BAD):
         doc = _set(_set(base, ("state_space",), _DELETE), ("transfer_function",), tf)
         cases.append(_doc_case(f"transfer-function-{k}", doc))
-    for k, zpk in enumerate(_ZPK_BAD):
-        doc = _set(_set(base, ("state_space",), _DELETE), ("zeros_poles_gain",), zpk)
+    for k, zeros_poles_gain in enumerate(_ZEROS_POLES_GAIN_BAD):
+        doc = _set(_set(base, ("state_space",), _DELETE), ("zeros_poles_gain",), zeros_poles_gain)
         cases.append(_doc_case(f"zeros-poles-gain-{k}", doc))
     for key, index in (("a", (0, 0)), ("b", (1, 0)), ("c", (0, 0)), ("d", (0, 0))):
         for value in _EXTREME:

@@ -147,9 +147,9 @@ def test_submit_fetch_and_exact_bytes(svc: Service) -> None:
     assert rec["report"]["comparison"]["report"] == "compare"
     assert rec["tolerances"]["rtol"] == pytest.approx(1e-5, rel=0, abs=0)  # documented default
     assert [d["role"] for d in rec["documents"]] == ["reference", "model"]
-    canon = json.dumps(body["reference"], sort_keys=True, separators=(",", ":"),
+    canonical_bytes = json.dumps(body["reference"], sort_keys=True, separators=(",", ":"),
                        ensure_ascii=False).encode()
-    assert rec["documents"][0]["sha256"] == hashlib.sha256(canon).hexdigest()
+    assert rec["documents"][0]["sha256"] == hashlib.sha256(canonical_bytes).hexdigest()
     got = svc.client.get(f"/audits/{rec['id']}", headers=svc.auth(svc.team))
     assert got.status_code == 200 and got.json()["report"] == rec["report"]
     exact = svc.client.get(f"/audits/{rec['id']}/body", headers=svc.auth(svc.acme))

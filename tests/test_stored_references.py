@@ -328,7 +328,7 @@ def test_high_degree_clustered_poles_against_zero_pole_gain(degree: int) -> None
 
 
 def test_mimo_transfer_function_against_zero_pole_gain_and_modal() -> None:
-    # 2x2, each channel order 10, poles over 2 decades; ZPK from the same roots
+    # 2x2, each channel order 10, poles over 2 decades; zero-pole-gain from the same roots
     rng = np.random.default_rng(11)
     nums, dens, zs, ps, ks = [], [], [], [], []
     for i in range(2):

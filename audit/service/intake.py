@@ -144,7 +144,25 @@ def check_documents(sub: Any) -> list[dict[str, Any]]:
                                 field="claims.poles")
     if len(parsed) >= 2:
         _check_comparable(parsed, sub.claims.discretization is not None)
+    _check_stated_tolerances(sub, parsed[0][1])
     return entries
+
+
+def _check_stated_tolerances(sub: Any, first: Any) -> None:
+    """Refuse a bad band or channel tolerance at submission (422), not later in the job:
+    channels are resolved against the first document's counts and signal names."""
+    from ..band_peak import check_band
+    from ..tolerances import parse_channel_tolerance, resolve_channel_tolerances
+
+    if sub.band_rad_s is not None:
+        check_band(sub.band_rad_s, field="band_rad_s")
+    if sub.channel_rtol:
+        names = {k: [s.name for s in getattr(first, k, None) or []] or None
+                 for k in ("inputs", "outputs")}
+        resolve_channel_tolerances(
+            [parse_channel_tolerance(t, field="channel_rtol") for t in sub.channel_rtol],
+            n_outputs=first.n_outputs, n_inputs=first.n_inputs, output_names=names["outputs"],
+            input_names=names["inputs"], field="channel_rtol")
 
 
 def _same_period(a: float | None, b: float | None) -> bool:
