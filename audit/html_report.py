@@ -131,6 +131,16 @@ document.addEventListener('keydown',function(e){if(e.key==='Escape'){z.style.dis
 """
 
 
+def zoom_script_csp_source() -> str:
+    """The Content-Security-Policy source that lets exactly this page's zoom script run
+    (its SHA-256 hash, CSP Level 2); any other inline or injected script stays blocked."""
+    import base64
+    import hashlib
+
+    digest = hashlib.sha256(_ZOOM_SCRIPT.encode("utf-8")).digest()
+    return "'sha256-" + base64.b64encode(digest).decode("ascii") + "'"
+
+
 # --------------------------------------------------------------------- helpers
 def _e(value: Any) -> str:
     from .safe_output import xml_text  # no control characters or escape sequences

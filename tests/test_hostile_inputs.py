@@ -745,7 +745,21 @@ def test_service_stores_and_shows_hostile_names_safely(service: Any) -> None:
     page = client.get(f"/audits/{r.json()['id']}/report.html", headers=headers)
     assert page.status_code == 200
     csp = page.headers["content-security-policy"]
-    assert "default-src 'none'" in csp and "script-src" not in csp  # no script may run
+    # no script may run but the report page's own zoom script, named by its SHA-256 hash
+    # (CSP Level 2 hash source): an injected inline script has another hash and is blocked
+    from audit.html_report import zoom_script_csp_source
+
+    assert "default-src 'none'" in csp and "unsafe-inline' " not in csp.split("script-src")[-1]
+    assert csp.split("script-src")[-1].strip() == zoom_script_csp_source()
+    # the browser hashes the script element's text as served: it must be that exact text
+    import base64
+    import hashlib
+    import re
+
+    served = re.findall(r"<script[^>]*>(.*?)</script>", page.text, flags=re.S)
+    assert len(served) == 1
+    digest = base64.b64encode(hashlib.sha256(served[0].encode("utf-8")).digest()).decode()
+    assert f"'sha256-{digest}'" == zoom_script_csp_source()
     assert "<script>alert" not in page.text
 
 

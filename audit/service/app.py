@@ -219,14 +219,18 @@ class _SecurityHeaders:
     """Pure ASGI middleware adding the Content-Security-Policy to every response."""
 
     def __init__(self, app: Any) -> None:
+        from ..html_report import zoom_script_csp_source
+
         self.app = app
+        # the report page's one fixed zoom script may run, by its hash; nothing else
+        self.policy = CONTENT_SECURITY_POLICY + b"; script-src " + zoom_script_csp_source().encode("ascii")
 
     async def __call__(self, scope: dict[str, Any], receive: Any, send: Any) -> None:
         async def send_with_headers(message: dict[str, Any]) -> None:
             if message["type"] == "http.response.start":
                 message.setdefault("headers", [])
                 message["headers"] = [*message["headers"],
-                                      (b"content-security-policy", CONTENT_SECURITY_POLICY),
+                                      (b"content-security-policy", self.policy),
                                       (b"x-content-type-options", b"nosniff")]
             await send(message)
 
