@@ -357,25 +357,21 @@ class FileChange:
 
 # -------------------------------------------------------------- model reading
 def _looks_like_model(data: bytes, suffix: str) -> bool | None:
-    """True: a model document; False: parses but is something else; None: unparseable."""
-    import json
-    import tomllib
+    """True: a model document; False: parses but is something else; None: unparseable.
 
-    import yaml
+    Parsed with the same hardened readers as model files (depth and integer-size limits,
+    YAML 1.2 core schema), so a hostile file in any revision is "unreadable", not a crash.
+    """
+    from .loading import _parse_json, _parse_toml, _parse_yaml
 
     if suffix == ".npz":
         return True
+    parsers = {".json": _parse_json, ".toml": _parse_toml, ".yaml": _parse_yaml, ".yml": _parse_yaml}
+    if suffix not in parsers:
+        return None
     try:
-        text = data.decode("utf-8-sig")
-        if suffix == ".json":
-            parsed = json.loads(text)
-        elif suffix == ".toml":
-            parsed = tomllib.loads(text)
-        elif suffix in (".yaml", ".yml"):
-            parsed = yaml.safe_load(text)
-        else:
-            return None
-    except (ValueError, yaml.YAMLError):
+        parsed = parsers[suffix](data.decode("utf-8-sig"), "revision")
+    except (AuditError, UnicodeDecodeError, RecursionError):
         return None
     return isinstance(parsed, dict) and "lti_model" in parsed
 

@@ -979,6 +979,43 @@ def reproducible_part(report: dict[str, Any]) -> dict[str, Any]:
     return keep
 
 
+_REPORT_FIELDS: dict[str, tuple[type, ...]] = {
+    "settings": (dict,), "shard": (list,), "planned_cases": (int, type(None)),
+    "stopped_by_time_limit": (bool,), "seconds": (int, float), "counterexamples": (list,),
+    "cases": (list,),
+}
+
+
+def read_campaign_report(path: Path) -> dict[str, Any]:
+    """Read a shard's ``campaign.json`` for merging, checking its shape first.
+
+    Raises
+    ------
+    InvalidModelError
+        Not a regular file, too large, not JSON, or not a campaign report (the message
+        names the file and the first field that does not fit).
+    """
+    from .loading import _parse_json, read_input_bytes
+
+    source = str(path)
+    data = _parse_json(read_input_bytes(path, source=source, what="a campaign report")
+                       .decode("utf-8", errors="replace"), source)
+    if not isinstance(data, dict):
+        raise InvalidModelError(f"expected a campaign report (a JSON object written by "
+                                f"'lti-audit stress'), got {type(data).__name__}", source=source)
+    for key, types in _REPORT_FIELDS.items():
+        if not isinstance(data.get(key), types) or isinstance(data.get(key), bool) and bool not in types:
+            raise InvalidModelError(f"{key}: missing or of the wrong type in this campaign report",
+                                    field=key, source=source)
+    for k, case in enumerate(data["cases"]):
+        if not (isinstance(case, dict) and isinstance(case.get("index"), int)
+                and isinstance(case.get("results"), list)
+                and all(isinstance(r, dict) for r in case["results"])):
+            raise InvalidModelError(f"cases[{k}]: expected an object with an integer 'index' and a "
+                                    "list of 'results'", field=f"cases[{k}]", source=source)
+    return data
+
+
 def merge_campaigns(reports: Sequence[dict[str, Any]]) -> dict[str, Any]:
     """Merge the JSON reports of the shards of one campaign into one report.
 
@@ -995,6 +1032,11 @@ def merge_campaigns(reports: Sequence[dict[str, Any]]) -> dict[str, Any]:
             raise InvalidModelError("reports: the shards were run with different settings "
                                     f"({rep['settings']} vs {first})", field="settings")
     records = sorted((c for rep in reports for c in rep["cases"]), key=lambda c: c["index"])
+    try:
+        summary = summarize(records, first["pipelines"])
+    except (KeyError, TypeError, ValueError, AttributeError) as exc:
+        raise InvalidModelError(f"cases: a result does not have the fields a campaign report "
+                                f"holds ({type(exc).__name__}: {exc})", field="cases") from None
     merged = dict(reports[0])
     merged.update({
         "shard": [0, 1],
@@ -1004,7 +1046,7 @@ def merge_campaigns(reports: Sequence[dict[str, Any]]) -> dict[str, Any]:
         "completed_cases": len(records),
         "stopped_by_time_limit": any(r["stopped_by_time_limit"] for r in reports),
         "seconds": max(r["seconds"] for r in reports),
-        "pipelines": summarize(records, first["pipelines"]),
+        "pipelines": summary,
         "counterexamples": [c for rep in reports for c in rep["counterexamples"]],
         "cases": records,
     })

@@ -13,7 +13,6 @@ arguments, shows progress on stderr and writes files.
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 import time
 from pathlib import Path
@@ -132,10 +131,10 @@ def run(args: argparse.Namespace) -> int:
         reports = []
         for d in args.merge:
             path = Path(d) / "campaign.json"
-            if not path.is_file():
+            if not path.exists() and not path.is_symlink():
                 sys.stderr.write(f"lti-audit: error: --merge: {path} does not exist\n")
                 return 2
-            reports.append(json.loads(path.read_text(encoding="utf-8")))
+            reports.append(stress.read_campaign_report(path))
         merged: Any = stress.merge_campaigns(reports)
         paths = stress.write_reports(merged, out)
         sys.stderr.write(f"stress: merged {len(reports)} shard(s) into {paths['markdown']}\n")
