@@ -66,7 +66,7 @@ _CLAIM_CATEGORY: dict[str, Category] = {
     "holds": "pass", "fails": "fail", "inconclusive": "inconclusive", "error": "error"}
 _CHANGE_CATEGORY: dict[str, Category] = {
     "unchanged": "pass", "new": "pass", "deleted": "pass", "changed": "fail",
-    "inconclusive": "inconclusive", "unreadable": "error"}
+    "changed_internal_stability": "fail", "inconclusive": "inconclusive", "unreadable": "error"}
 _EXIT = {"ok": 0, "fail": 1, "invalid": 2, "inconclusive": 3}
 #: Entries listed under "largest discrepancies" in the Markdown summary.
 LARGEST_DISCREPANCIES = 5
@@ -239,6 +239,10 @@ def _change_note(f: FileChange) -> str:
         if any(w.startswith("UNSTABLE") for w in f.warnings):
             note += "; UNSTABLE hidden mode"
         return note
+    if f.status == "changed_internal_stability":
+        first = next((p for p in f.problems if not p.get("accepted")), None)
+        if first is not None:
+            return "changed in internal stability: " + first["message"]
     if f.status == "changed" and f.diagnosis:
         lines = diagnosis_lines(f.diagnosis, short=True)
         if lines:

@@ -29,6 +29,7 @@ class _Parser(argparse.ArgumentParser):
 
 def build_parser() -> argparse.ArgumentParser:
     from .commands._options import relative_tolerance, seconds
+    from .discretization_methods import METHODS
     from .evidence import DEFAULT_RTOL
     from .verdict import ESCALATION_SECONDS
 
@@ -44,16 +45,29 @@ def build_parser() -> argparse.ArgumentParser:
     cmp_.add_argument("models", nargs="+", metavar="MODEL", help="model documents (JSON, YAML, TOML or .npz)")
     cmp_.add_argument("--rtol", type=relative_tolerance, default=DEFAULT_RTOL,
                       help=f"relative tolerance on the peak gain of the difference (default {DEFAULT_RTOL:g})")
+    cmp_.add_argument("--atol", type=_absolute_tolerance, default=0.0, metavar="GAIN",
+                      help="absolute tolerance on the difference, in the models' gain units "
+                      "(output units per input unit); a difference within the larger of "
+                      "rtol x peak gain and GAIN passes (default 0: none)")
+    cmp_.add_argument("--band", type=float, nargs=2, metavar=("LOW", "HIGH"), default=None,
+                      help="band of interest in rad/s: only the difference inside it decides; "
+                      "the difference over all frequencies is still reported")
+    cmp_.add_argument("--channel-rtol", action="append", default=[], metavar="OUT:IN=R",
+                      help="relative tolerance R for one channel (OUT:IN=R) or one output "
+                      "(OUT=R); OUT and IN are 0-based indices, signal names from the first "
+                      "model's document, or *; repeatable; the decision is then made channel "
+                      "by channel")
     cmp_.add_argument("--format", choices=("text", "json", "html"), default="text",
                       help="report format (html needs -o and models in one time domain)")
     cmp_.add_argument("-o", "--output", metavar="FILE",
                       help="write the report to FILE (never overwrites) and print a one-line "
                       "summary")
-    cmp_.add_argument("--discretization", choices=("zoh", "foh", "tustin", "matched", "impulse"),
+    cmp_.add_argument("--discretization", type=_discretization_method, metavar="METHOD",
                       help="relate continuous and discrete models: the continuous one is "
-                      "discretized with this method at the discrete one's period")
+                      "discretized with METHOD at the discrete one's period; METHOD is one of "
+                      + ", ".join(METHODS))
     cmp_.add_argument("--prewarp", type=float, default=None, metavar="RAD_PER_S",
-                      help="prewarp frequency for --discretization tustin")
+                      help="prewarp frequency for --discretization bilinear")
     cmp_.add_argument("--escalation-seconds", type=seconds, default=ESCALATION_SECONDS,
                       help="time budget per pair for extended-precision re-evaluation "
                       f"(default {ESCALATION_SECONDS:g}; 0 disables it)")
@@ -61,6 +75,10 @@ def build_parser() -> argparse.ArgumentParser:
                       help="for sparse models above the dense route's size: accept 'no "
                       "difference on the sampled frequency grid' as 'equivalent on the sampled "
                       "grid' (default: inconclusive, as nothing is bounded between grid points)")
+    cmp_.add_argument("--accept-hidden-instability", type=_reason, default=None, metavar="REASON",
+                      help="accept knowingly that a model has an unstable or marginal hidden or "
+                      "nearly hidden mode the reference lacks; REASON is printed in the report "
+                      "and the exit status follows the input-output verdict alone")
     ins = sub.add_parser("inspect", help="report one model's properties and problems")
     ins.add_argument("model", metavar="MODEL")
     ins.add_argument("--format", choices=("text", "json"), default="text")
@@ -69,6 +87,28 @@ def build_parser() -> argparse.ArgumentParser:
         module.add_arguments(sp)
         sp.set_defaults(_run=module.run)
     return parser
+
+
+def _absolute_tolerance(text: str) -> float:
+    """``--atol``: a finite number >= 0."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number >= 0 in the models' gain units, got {text!r}") from None
+    if not (value >= 0 and value != float("inf")):
+        raise argparse.ArgumentTypeError(f"expected a finite number >= 0 in the models' gain units, got {text}")
+    return value
+
+
+def _discretization_method(text: str) -> str:
+    """``--discretization``: one of the method names, else a usage error listing them."""
+    from .discretization_methods import discretization_method
+    from .errors import InvalidModelError
+
+    try:
+        return discretization_method(text, field="--discretization")
+    except InvalidModelError as exc:
+        raise argparse.ArgumentTypeError(str(exc).removeprefix("--discretization: ")) from None
 
 
 def _command_modules() -> list[Any]:
@@ -158,7 +198,8 @@ def _compare(args: argparse.Namespace) -> int:
     names = [m.name or os.path.basename(p) for m, p in zip(models, args.models)]
     models = [m.with_name(n) for m, n in zip(models, names)]
     options = Options(rtol=args.rtol, escalate=args.escalation_seconds > 0,
-                      escalation_seconds=args.escalation_seconds)
+                      escalation_seconds=args.escalation_seconds,
+                      **_stated_tolerances(args, docs[0], models[0]))
     pairs = []
     ref = models[0]
     for other, path in zip(models[1:], args.models[1:]):
@@ -167,8 +208,14 @@ def _compare(args: argparse.Namespace) -> int:
         except IncompatibleModelsError as exc:
             raise IncompatibleModelsError(f"{path}: {exc}") from None
     verdict = overall_verdict(pairs)
+    from .internal_stability import model_modes, modes_from_comparisons, unaccepted
+
+    modes = [_sparse_modes(m) if isinstance(m, SparseRealization)
+             else modes_from_comparisons(m, pairs) or model_modes(m, label=m.name)
+             for m in models]
     data = compare_report(models, list(args.models), pairs, options, verdict,
-                          time.perf_counter() - start, signals=signals)
+                          time.perf_counter() - start, signals=signals, modes=modes,
+                          accepted_reason=args.accept_hidden_instability)
     if args.format == "html":
         from .html_report import render_compare_html
 
@@ -177,13 +224,53 @@ def _compare(args: argparse.Namespace) -> int:
         text = render_json(data) if args.format == "json" else render_compare_text(data)
         text = text if args.format == "json" else terminal_text(text)  # names: plain text
     if args.output:
+        from .report import compare_headline
         from .safe_output import write_output_file
 
         write_output_file(args.output, text, flag="")
-        sys.stdout.write(f"lti-audit compare: {verdict.upper()}; report written to {args.output}\n")
+        sys.stdout.write(f"{compare_headline(data)}; report written to {args.output}\n")
     else:
         sys.stdout.write(text)
+    if unaccepted(data["problems"]):  # a new unstable hidden mode fails whatever the verdict
+        return EXIT_DIFFERENT
     return {"equivalent": EXIT_OK, "different": EXIT_DIFFERENT, "inconclusive": EXIT_INCONCLUSIVE}[verdict]
+
+
+def _sparse_modes(m: Any) -> Any:
+    """No hidden-mode analysis for a sparse model on the sampled route (a dense staircase
+    of its order is what that route avoids): an empty, undecided entry."""
+    from .internal_stability import ModelModes
+
+    nan = float("nan")  # not analysed
+    return ModelModes(label=m.name, modes=(), minimal_order=m.order,
+                      thresholds={"hidden": nan, "nearly_hidden": nan, "marginal": nan},
+                      decisions_clear=False, sample_period=m.sample_period)
+
+
+def _reason(text: str) -> str:
+    """An acceptance reason: non-empty text."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("expected a non-empty reason (why the hidden mode is accepted)")
+    return text.strip()
+
+
+def _stated_tolerances(args: argparse.Namespace, doc: Any, reference: Any) -> dict[str, Any]:
+    """``--atol``, ``--band`` and ``--channel-rtol`` as Options fields (names resolved
+    against the first model's document); bad values raise InvalidModelError (exit 2)."""
+    from .band_peak import check_band
+    from .tolerances import parse_channel_tolerance, resolve_channel_tolerances
+
+    out: dict[str, Any] = {"atol": args.atol}
+    if args.band is not None:
+        out["band"] = check_band(args.band, field="--band")
+    if args.channel_rtol:
+        specs = [parse_channel_tolerance(t, field="--channel-rtol") for t in args.channel_rtol]
+        out["channel_rtol"] = resolve_channel_tolerances(
+            specs, n_outputs=reference.n_outputs, n_inputs=reference.n_inputs,
+            output_names=[s.name for s in doc.outputs] if getattr(doc, "outputs", None) else None,
+            input_names=[s.name for s in doc.inputs] if getattr(doc, "inputs", None) else None,
+            field="--channel-rtol")
+    return out
 
 
 def _is_bilinear(method: str | None) -> bool:
@@ -213,6 +300,12 @@ def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore
     from .verdict import compare_discretized, compare_pair, compare_sample_periods
 
     if isinstance(ref, SparseRealization) or isinstance(other, SparseRealization):
+        if options.atol or options.band is not None or getattr(options, "channel_rtol", None):
+            from .errors import InvalidModelError
+
+            raise InvalidModelError("--atol, --band and --channel-rtol are not available on "
+                                    "the sampled sparse route (models above "
+                                    "1000 states given as sparse_state_space)")
         return compare_sparse_pair(ref, other, rtol=options.rtol,
                                    accept_sampled=bool(getattr(args, "accept_sampled", False)))
 

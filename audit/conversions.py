@@ -64,8 +64,10 @@ ComplexArray = NDArray[np.complex128]
 #: the ~1e-15 relative rounding of orthogonal transformations, well below any modelled
 #: physical effect.
 DEFAULT_RANK_RTOL = 1e-10
-#: Default relative tolerance for stripping leading (near-)zero polynomial coefficients.
-DEFAULT_COEFFICIENT_RTOL = 1e-14
+#: Default relative tolerance for stripping leading polynomial coefficients and merging
+#: denominators: 0, i.e. only coefficients that are zero as stored are dropped and only
+#: denominators equal as stored are shared (the stored polynomial is the model).
+DEFAULT_COEFFICIENT_RTOL = 0.0
 #: Default relative tolerance for conjugate-pair matching of complex zeros and poles.
 DEFAULT_CONJUGATE_RTOL = 1e-9
 
@@ -206,7 +208,12 @@ def _real_vector(value: Any, name: str) -> FloatArray:
 
 
 def _strip_leading(coeffs: FloatArray, rtol: float) -> FloatArray:
-    """Drop leading coefficients below ``rtol * max|coeff|`` (keep at least one)."""
+    """Drop leading coefficients ``<= rtol * max|coeff|`` (keep at least one).
+
+    With ``rtol = 0`` (the default everywhere) only coefficients that ARE zero are dropped:
+    the stored polynomial is the model, and a coefficient small relative to the others
+    (the leading 1.0 of a polynomial whose constant term is 1e38) is kept.
+    """
     scale = float(np.max(np.abs(coeffs))) if coeffs.size else 0.0
     if scale == 0.0:
         return np.zeros(1)
@@ -215,9 +222,18 @@ def _strip_leading(coeffs: FloatArray, rtol: float) -> FloatArray:
 
 
 def _normalized_channels(
-    numerator: Any, denominator: Any, coefficient_rtol: float
+    numerator: Any, denominator: Any, coefficient_rtol: float,
+    rounding_improper: list[dict[str, Any]] | None = None,
 ) -> tuple[int, int, list[list[tuple[FloatArray, FloatArray]]]]:
-    """Validate and normalise: monic denominator, stripped leading zeros, proper."""
+    """Validate and normalise: monic denominator, stripped leading zeros, proper.
+
+    Excess leading numerator coefficients at rounding level
+    (:func:`audit.stored_evaluation.is_rounding_improper`) are left out of the returned
+    (realizable) channel and described in ``rounding_improper``; the stored data keep
+    them and the decisive evidence evaluates them.
+    """
+    from .stored_evaluation import improper_excess, is_rounding_improper
+
     p, m = _grid_shape(numerator, "transfer_function.numerator")
     pd, md = _grid_shape(denominator, "transfer_function.denominator")
     if (pd, md) != (p, m):
@@ -244,13 +260,22 @@ def _normalized_channels(
                 )
             den = _strip_leading(den, coefficient_rtol)
             num = _strip_leading(num, coefficient_rtol)
-            if num.size > den.size:  # a zero numerator was stripped to [0.0]
-                raise InvalidModelError(
-                    f"{num_name}: has degree {num.size - 1} but the denominator has degree "
-                    f"{den.size - 1}; channel [{i}][{j}] is improper (only proper transfer "
-                    "functions have a state-space realization)",
-                    field=num_name,
-                )
+            if num.size > den.size:
+                if np.any(num != 0.0) and is_rounding_improper(num, den):
+                    excess, rel = improper_excess(num, den)
+                    if rounding_improper is not None:
+                        rounding_improper.append({
+                            "channel": [i, j], "coefficients": num[:excess].tolist(),
+                            "numerator_degree": num.size - 1, "denominator_degree": den.size - 1,
+                            "relative_size": rel})
+                    num = num[excess:]
+                else:
+                    raise InvalidModelError(
+                        f"{num_name}: has degree {num.size - 1} but the denominator has degree "
+                        f"{den.size - 1}; channel [{i}][{j}] is improper (only proper transfer "
+                        "functions have a state-space realization)",
+                        field=num_name,
+                    )
             lead = den[0]
             den = den / lead
             num = num / lead
@@ -362,10 +387,19 @@ def _companion_column(
     d = np.zeros((p, 1))
     for den, members in groups:
         k = den.size - 1
+        # Controllable companion form in the diagonal power-of-two coordinates
+        # x_r -> w0^r x_r (w0 the balancing frequency of the denominator): the first row
+        # holds -a_(c+1) / w0^c, the subdiagonal w0, C the numerator residue / w0^c.
+        # Every entry is a stored coefficient times a power of two (exact), and a
+        # high-degree polynomial neither overflows nor needs truncating.
+        from .stored_evaluation import balancing_frequency
+
+        e = int(round(math.log2(balancing_frequency(den))))
+        shifts = -e * np.arange(k)
         a_g = np.zeros((k, k))
         if k:
-            a_g[0, :] = -den[1:]
-            a_g[1:, :-1] = np.eye(k - 1)
+            a_g[0, :] = np.ldexp(-den[1:], shifts)
+            a_g[np.arange(1, k), np.arange(k - 1)] = math.ldexp(1.0, e)
         b_g = np.zeros((k, 1))
         if k:
             b_g[0, 0] = 1.0
@@ -373,7 +407,7 @@ def _companion_column(
         for i in members:
             num = column[i][0]
             d[i, 0] = num[0]
-            c_g[i, :] = num[1:] - num[0] * den[1:]
+            c_g[i, :] = np.ldexp(num[1:] - num[0] * den[1:], shifts)
         a_blocks.append(a_g)
         b_blocks.append(b_g)
         c_blocks.append(c_g)
@@ -499,7 +533,7 @@ def realization_from_transfer_function(
     *,
     rank_rtol: float = DEFAULT_RANK_RTOL,
     coefficient_rtol: float = DEFAULT_COEFFICIENT_RTOL,
-    use_slycot: bool = True,
+    use_slycot: bool = False,
 ) -> Realization:
     """Minimal state-space realization of a proper transfer matrix (MIMO included).
 
@@ -514,12 +548,18 @@ def realization_from_transfer_function(
         Relative tolerance of the staircase rank decisions that remove uncontrollable and
         unobservable parts (pole-zero cancellations closer than this are cancelled).
     coefficient_rtol : float, keyword-only
-        Leading coefficients smaller than ``coefficient_rtol * max|coefficients|`` of the
+        Leading coefficients at most ``coefficient_rtol * max|coefficients|`` of the
         same polynomial are treated as zero; denominators of one column whose monic
-        coefficients agree to ``100 * coefficient_rtol`` are treated as the same.
+        coefficients agree to ``100 * coefficient_rtol`` are treated as the same.  The
+        default 0 drops only zero coefficients and shares only equal denominators.
     use_slycot : bool, keyword-only
-        Use SLICOT ``TD04AD`` first (default); otherwise, or if it fails, use the own
-        companion-block construction.  Both are followed by the orthogonal staircase.
+        Use SLICOT ``TD04AD`` first (it multiplies distinct denominators of a column into
+        one polynomial, which rounds); by default, or if it fails, use the own
+        construction: controllable companion blocks whose entries are the stored
+        coefficients times powers of two, one block per denominator (shared only by
+        denominators equal as stored), by columns or rows, whichever is smaller.  Both
+        are followed by the orthogonal staircase.  The returned realization carries the
+        stored coefficients (:attr:`Realization.stored`).
 
     Returns
     -------
@@ -541,8 +581,11 @@ def realization_from_transfer_function(
     >>> r.order, r.d.tolist()
     (1, [[1.0, 0.0]])
     """
+    from .stored_evaluation import StoredTransferFunction
+
     period = _check_sample_period(sample_period)
-    p, m, channels = _normalized_channels(numerator, denominator, coefficient_rtol)
+    improper: list[dict[str, Any]] = []
+    p, m, channels = _normalized_channels(numerator, denominator, coefficient_rtol, improper)
     result: tuple[FloatArray, FloatArray, FloatArray, FloatArray] | None = None
     if use_slycot:
         try:
@@ -550,16 +593,77 @@ def realization_from_transfer_function(
         except NumericalTroubleError:
             result = None
     if result is None:
-        result = _realize_columns_own(channels, p, m, coefficient_rtol=coefficient_rtol)
+        result = _realize_own(channels, p, m, coefficient_rtol=coefficient_rtol)
     a, b, c, d = result
-    # Verify / complete minimality with our own orthogonal staircase.
-    a, b, c = _minimal_part(a, b, c, rank_rtol=rank_rtol)
+    stored = StoredTransferFunction(
+        numerator=tuple(tuple(_strip_leading(_real_vector(numerator[i][j], "numerator"), 0.0)
+                              for j in range(m)) for i in range(p)),
+        denominator=tuple(tuple(_strip_leading(_real_vector(denominator[i][j], "denominator"), 0.0)
+                                for j in range(m)) for i in range(p)),
+        sample_period=period,
+        rounding_improper=tuple(improper),
+    )
+    # Verify / complete minimality with our own orthogonal staircase; keep the reduction
+    # only if it still realizes the stored data (rank decisions on companion blocks with
+    # coefficients over many decades can remove modes that are there).
+    a_m, b_m, c_m = _minimal_part(a, b, c, rank_rtol=rank_rtol)
+    if a_m.shape[0] < a.shape[0] and _reduction_faithful(a_m, b_m, c_m, d, stored, period):
+        a, b, c = a_m, b_m, c_m
     for name, arr in (("A", a), ("B", b), ("C", c), ("D", d)):
         if not np.all(np.isfinite(arr)):
             raise NumericalTroubleError(
                 f"realization of the transfer matrix produced a non-finite {name}"
             )
-    return Realization.from_arrays(a, b, c, d, period)
+    return Realization.from_arrays(a, b, c, d, period).with_stored(stored)
+
+
+#: A staircase reduction of a transfer-function realization is kept when it reproduces
+#: the stored data to this relative accuracy at the check points (common practice, no
+#: source: far below the audit's default tolerance 1e-5, well above double rounding).
+REDUCTION_CHECK_RTOL = 1e-9
+
+
+def _reduction_faithful(a: FloatArray, b: FloatArray, c: FloatArray, d: FloatArray,
+                        stored: Any, period: float | None) -> bool:
+    """True when (a, b, c, d) matches the stored transfer function at 24 points of the
+    stability boundary spread over the stored pole frequencies (relative to the
+    largest gain there)."""
+    poles = stored.poles()
+    poles = poles[np.isfinite(poles)]
+    if period is None:
+        mags = np.abs(poles[np.abs(poles) > 0])
+        lo, hi = (mags.min() / 10, mags.max() * 10) if mags.size else (1e-2, 1e2)
+        pts = 1j * np.geomspace(lo, hi, 24)
+    else:
+        pts = np.exp(1j * np.linspace(1e-3, np.pi, 24))
+    ref, bound = stored.evaluate(pts)
+    ok = np.isfinite(bound)
+    if not np.any(ok):
+        return False
+    n = a.shape[0]
+    got = np.empty_like(ref)
+    for k, lam in enumerate(pts):
+        try:
+            got[k] = c @ np.linalg.solve(lam * np.eye(n) - a, b) + d if n else d
+        except np.linalg.LinAlgError:
+            return False
+    scale = float(np.max(np.abs(ref[ok]), initial=0.0))
+    err = float(np.max(np.abs(got[ok] - ref[ok]) - bound[ok, None, None], initial=0.0))
+    return bool(np.isfinite(err) and err <= REDUCTION_CHECK_RTOL * max(scale, 1e-300))
+
+
+def _realize_own(
+    channels: list[list[tuple[FloatArray, FloatArray]]], p: int, m: int, *, coefficient_rtol: float
+) -> tuple[FloatArray, FloatArray, FloatArray, FloatArray]:
+    """Companion blocks by columns, or by rows (the dual) when that needs fewer states."""
+    col = _realize_columns_own(channels, p, m, coefficient_rtol=coefficient_rtol)
+    if p > 1 and m > 1:
+        transposed = [[channels[i][j] for i in range(p)] for j in range(m)]
+        row = _realize_columns_own(transposed, m, p, coefficient_rtol=coefficient_rtol)
+        if row[0].shape[0] < col[0].shape[0]:
+            a, b, c, d = row
+            return a.T.copy(), c.T.copy(), b.T.copy(), d.T.copy()
+    return col
 
 
 # =============================================== zeros-poles-gain -> state space
@@ -847,7 +951,15 @@ def realization_from_zeros_poles_gain(
         c[i, offset:offset + size] = crow
         offset += size
     a, b, c = _minimal_part(a, b, c, rank_rtol=rank_rtol)
-    return Realization.from_arrays(a, b, c, d, period)
+    from .stored_evaluation import StoredZerosPolesGain
+
+    stored = StoredZerosPolesGain(
+        zeros=tuple(tuple(_complex_list(zeros[i][j], "zeros") for j in range(m)) for i in range(p)),
+        poles_=tuple(tuple(_complex_list(poles[i][j], "poles") for j in range(m)) for i in range(p)),
+        gain=np.array([[float(gain[i][j]) for j in range(m)] for i in range(p)]),
+        sample_period=period,
+    )
+    return Realization.from_arrays(a, b, c, d, period).with_stored(stored)
 
 
 # =============================================== state space -> zeros-poles-gain

@@ -2,15 +2,15 @@
 
 Methods implemented
 -------------------
-* **Zero-order hold** via one matrix exponential of the augmented matrix
+* **Zero-order hold** (``method="zero-order-hold"``) via one matrix exponential of the augmented matrix
   ``[[A, B], [0, 0]] T`` (C. F. Van Loan, "Computing integrals involving the matrix
   exponential", IEEE Trans. Automatic Control 23(3), 1978).
-* **First-order (triangle) hold** via the matrix exponential of the 3x3 block matrix
+* **Triangle hold** (first-order hold, ``method="triangle-hold"``) via the matrix exponential of the 3x3 block matrix
   ``[[A T, B T, 0], [0, 0, I], [0, 0, 0]]`` (G. F. Franklin, J. D. Powell, M. L. Workman,
   *Digital Control of Dynamic Systems*, 3rd ed., 1998, sec. 6.3 -- from memory). The
   triangle hold is non-causal; the standard change of state ``xi = x - Gamma2 u`` gives
   a causal realization with a direct term.
-* **Tustin (bilinear)** with optional frequency prewarping,
+* **Bilinear (Tustin)** (``method="bilinear"``) with optional frequency prewarping,
   ``s = (1/alpha) (z - 1)/(z + 1)`` with ``alpha = T/2`` or ``alpha = tan(w T/2)/w``.
   Computed with one LU factorization of ``I - alpha A`` and solves (no inverse). The
   input and output matrices are scaled symmetrically by ``sqrt(2 alpha)`` -- the
@@ -18,14 +18,14 @@ Methods implemented
   ``C_d = sqrt(2 alpha) C (I - alpha A)^-1``, ``D_d = D + alpha C (I - alpha A)^-1 B``.
   Other tools put the whole factor ``2 alpha = T`` on ``B``; the transfer function is
   the same.
-* **Matched pole-zero** (SISO only; Franklin, Powell and Workman, sec. 6.3.2 -- from
+* **Matched pole-zero** (``method="matched-pole-zero"``, SISO only; Franklin, Powell and Workman, sec. 6.3.2 -- from
   memory): poles and finite zeros mapped by ``z = exp(s T)``; of the ``r`` zeros at
   infinity (``r`` = relative degree) ``r - 1`` are mapped to ``z = -1`` and one is left at
   infinity, so the discrete model keeps a one-sample delay (the "modified" matched
   method, convenient for real-time computation). The gain is matched at DC; when the
   model has ``k`` net integrators (or differentiators) the low-frequency asymptote is
   matched instead: ``G(s) ~ K0 s^-k`` corresponds to ``G_d(z) ~ K0 ((z-1)/T)^-k``.
-* **Impulse invariant**: ``h_d[k] = T h(k T)`` for ``k >= 0``, i.e.
+* **Impulse invariant** (``method="impulse-invariant"``): ``h_d[k] = T h(k T)`` for ``k >= 0``, i.e.
   ``A_d = e^{AT}``, ``B_d = T e^{AT} B``, ``C_d = C``, ``D_d = D + T C B``. The direct
   term ``D delta(t)`` of the continuous impulse response has area ``D``; sampled with the
   same ``T`` weighting it contributes ``D`` to the first sample (our ``D/T`` convention:
@@ -43,18 +43,17 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from fractions import Fraction
-from typing import Any, Literal, get_args
+from typing import Any, Literal
 
 import numpy as np
 import scipy.linalg
 from numpy.typing import NDArray
 from scipy.optimize import linear_sum_assignment
 
+from .discretization_methods import METHODS, DiscretizationMethod, discretization_method
 from .errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from .realization import Realization
 
-DiscretizationMethod = Literal["zoh", "foh", "tustin", "matched", "impulse"]
-METHODS: tuple[str, ...] = get_args(DiscretizationMethod)
 
 FloatArray = NDArray[np.float64]
 ComplexArray = NDArray[np.complex128]
@@ -220,7 +219,7 @@ def _matched_pole_distance(p1: ComplexArray, p2: ComplexArray) -> float:
 
 
 # ----------------------------------------------------------------------- methods
-def _tustin(r: Realization, period: float, prewarp: float | None) -> tuple[FloatArray, ...]:
+def _bilinear(r: Realization, period: float, prewarp: float | None) -> tuple[FloatArray, ...]:
     if prewarp is None:
         alpha = period / 2.0
     else:
@@ -245,7 +244,7 @@ def _tustin(r: Realization, period: float, prewarp: float | None) -> tuple[Float
     return ad, bd, cd, dd
 
 
-def _foh(r: Realization, period: float) -> tuple[FloatArray, ...]:
+def _triangle_hold(r: Realization, period: float) -> tuple[FloatArray, ...]:
     n, m = r.order, r.n_inputs
     big = np.zeros((n + 2 * m, n + 2 * m))
     big[:n, :n] = r.a * period
@@ -325,10 +324,10 @@ def _observer_companion(num: FloatArray, den: FloatArray) -> tuple[FloatArray, .
     return a, b, c, np.array([[d0]])
 
 
-def _matched(r: Realization, period: float, origin_rtol: float) -> tuple[FloatArray, ...]:
+def _matched_pole_zero(r: Realization, period: float, origin_rtol: float) -> tuple[FloatArray, ...]:
     if (r.n_inputs, r.n_outputs) != (1, 1):
         raise InvalidModelError(
-            f"method='matched': the model has {r.n_inputs} input(s) and {r.n_outputs} "
+            f"method='matched-pole-zero': the model has {r.n_inputs} input(s) and {r.n_outputs} "
             "output(s) but matched pole-zero mapping is defined per channel for SISO "
             "models only; discretize each channel separately or use another method",
             field="method",
@@ -395,7 +394,7 @@ def discretize(
         Continuous-time model, ``A : (n, n)``, ``B : (n, m)``, ``C : (p, n)``, ``D : (p, m)``.
     period : float
         Sample period ``T`` in seconds, > 0.
-    method : {"zoh", "foh", "tustin", "matched", "impulse"}
+    method : {"zero-order-hold", "triangle-hold", "bilinear", "matched-pole-zero", "impulse-invariant"}
         See the module docstring for each method's formulas and conventions.
     prewarp_frequency : float or None
         Tustin only: frequency ``w`` in rad/s (``0 < w < pi/T``) at which the discrete
@@ -426,16 +425,12 @@ def discretize(
     Examples
     --------
     >>> r = Realization.from_arrays([[-1.0]], [[1.0]], [[1.0]], [[0.0]])
-    >>> d = discretize(r, 0.5, method="zoh")
+    >>> d = discretize(r, 0.5, method="zero-order-hold")
     >>> round(float(d.a[0, 0]), 6), d.sample_period
     (0.606531, 0.5)
     """
     r = _require_realization(r, "model")
-    if method not in METHODS:
-        raise InvalidModelError(
-            f"method: got {method!r} but one of {', '.join(repr(x) for x in METHODS)} was expected",
-            field="method",
-        )
+    method = discretization_method(method)  # raises, listing the accepted names
     period = _check_period(period)
     if r.is_discrete:
         raise InvalidModelError(
@@ -444,10 +439,10 @@ def discretize(
             field="sample_period",
         )
     if prewarp_frequency is not None:
-        if method != "tustin":
+        if method != "bilinear":
             raise InvalidModelError(
                 f"prewarp_frequency: given ({prewarp_frequency!r}) but prewarping only "
-                f"applies to method='tustin', not {method!r}",
+                f"applies to method='bilinear', not {method!r}",
                 field="prewarp_frequency",
             )
         w = float(prewarp_frequency)
@@ -460,17 +455,17 @@ def discretize(
             )
     if r.order == 0:
         return Realization.from_arrays(r.a, r.b, r.c, r.d, period, name=r.name)
-    if method == "zoh":
+    if method == "zero-order-hold":
         phi, gamma = zero_order_hold_pair(r.a, r.b, period)
         mats: tuple[FloatArray, ...] = (phi, gamma, r.c, r.d)
-    elif method == "foh":
-        mats = _foh(r, period)
-    elif method == "tustin":
-        mats = _tustin(r, period, prewarp_frequency)
-    elif method == "impulse":
+    elif method == "triangle-hold":
+        mats = _triangle_hold(r, period)
+    elif method == "bilinear":
+        mats = _bilinear(r, period, prewarp_frequency)
+    elif method == "impulse-invariant":
         mats = _impulse_invariant(r, period)
     else:
-        mats = _matched(r, period, origin_rtol)
+        mats = _matched_pole_zero(r, period, origin_rtol)
     for mat in mats:
         _finite_or_raise(np.asarray(mat), f"{method} discretization")
     return Realization.from_arrays(*mats, sample_period=period, name=r.name)
@@ -536,7 +531,8 @@ class DiscretizationClaimCheck:
     matching_method : str or None
         The best alternative that matches within tolerance, if any.
     message : str
-        One-sentence summary, e.g. "the matrices look like a tustin discretization, not zoh".
+        One-sentence summary, e.g. "the matrices look like a bilinear discretization, not
+        zero-order-hold".
     """
 
     method: str
@@ -617,8 +613,8 @@ def check_discretization_claim(
     method; the two discrete models are compared by their frequency responses on the
     unit circle (a log-spaced grid of ``n_frequencies`` points up to the Nyquist
     frequency plus every pole frequency of both) and, when the orders agree, by their
-    optimally paired poles. When the claim fails, every other method (Tustin without
-    prewarping, and matched only for SISO models) is tried and reported.
+    optimally paired poles. When the claim fails, every other method (bilinear without
+    prewarping, and matched-pole-zero only for SISO models) is tried and reported.
 
     Parameters
     ----------
@@ -685,8 +681,8 @@ def check_discretization_claim(
         )
     alternatives: list[MethodMatch] = []
     tries: list[tuple[str, float | None]] = [(m, None) for m in METHODS if m != method]
-    if method == "tustin" and prewarp_frequency is not None:
-        tries.insert(0, ("tustin", None))
+    if method == "bilinear" and prewarp_frequency is not None:
+        tries.insert(0, ("bilinear", None))
     for alt, pw in tries:
         try:
             alt_r = discretize(continuous, period, method=alt, prewarp_frequency=pw)  # type: ignore[arg-type]

@@ -564,6 +564,17 @@ def _numerator_degree(coefficients: Sequence[float]) -> int:
     return 0
 
 
+def _rounding_level_excess(num: Sequence[float], den: Sequence[float]) -> bool:
+    """True when the numerator's coefficients beyond the denominator degree are rounding
+    residue (a state-space-to-transfer-function conversion of a model without
+    feedthrough leaves them near 1e-16 relative): such a channel is audited, with a
+    warning and the residue's effect bounded (see
+    :func:`audit.stored_evaluation.is_rounding_improper`)."""
+    from .stored_evaluation import is_rounding_improper
+
+    return is_rounding_improper(np.asarray(num, dtype=float), np.asarray(den, dtype=float))
+
+
 def _table_shape_problems(
     tables: Sequence[tuple[str, Sequence[Sequence[Any]]]],
 ) -> list[DocumentProblem]:
@@ -648,7 +659,7 @@ class TransferFunction(BaseModel):
                 total_degree += den_degree
                 if num:
                     num_degree = _numerator_degree(num)
-                    if num_degree > den_degree:
+                    if num_degree > den_degree and not _rounding_level_excess(num, den):
                         problems.append(DocumentProblem(
                             (i, j),
                             f"improper (numerator degree {num_degree} > denominator degree "

@@ -10,7 +10,9 @@ gains, frequency grid, similarity transform) supports and explains the verdict.
 
 Outcomes: ``pass`` (agrees within tolerance), ``fail`` (differs beyond tolerance),
 ``unclear`` (the numerical error of the evidence straddles the tolerance), ``info``
-(reported, does not decide), ``skipped`` (not applicable, with the reason).
+(reported, does not decide), ``skipped`` (not applicable, with the reason),
+``not_computed`` (an explanatory computation failed; the reason is its summary and the
+verdict stands on the decisive evidence).
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ from numpy.typing import NDArray
 
 from .realization import Realization
 
-Outcome = Literal["pass", "fail", "unclear", "info", "skipped"]
+Outcome = Literal["pass", "fail", "unclear", "info", "skipped", "not_computed"]
 EPS = float(np.finfo(float).eps)
 
 DEFAULT_RTOL = 1e-5
@@ -33,9 +35,6 @@ gain of the two models). Chosen well above the rounding level of double-precisio
 evaluations of realizations reached through similarity transforms with cond(T) up to
 about 1e8, and well below differences an engineer can see on a Bode plot."""
 
-BOUNDARY_RTOL = 1e-9
-"""A pole is treated as on the stability boundary (imaginary axis / unit circle) when
-its distance to it is below this fraction of its magnitude (or of 1)."""
 
 
 def complex_pairs(values: NDArray[np.complexfloating] | list[complex]) -> list[list[float]]:
@@ -84,7 +83,7 @@ class Evidence:
         The measured value of the metric (None when it has no single number).
     tolerance : float or None
         The tolerance the value was compared against.
-    outcome : {"pass", "fail", "unclear", "info", "skipped"}
+    outcome : {"pass", "fail", "unclear", "info", "skipped", "not_computed"}
     decisive : bool
         True for the evidence that decides the verdict.
     precision : str
@@ -167,46 +166,130 @@ class Contour:
         return self.reason
 
 
-def _near_boundary(poles: NDArray[np.complexfloating], discrete: bool) -> bool:
-    if poles.size == 0:
-        return False
+BOUNDARY_PREFILTER = 1e-5
+"""Computed poles farther than this (relative) from the stability boundary are not
+examined further; closer ones are tested against the stored data (see
+:func:`boundary_poles_as_stored`)."""
+
+ROUNDING_SAFETY = 16.0
+"""Safety factor on the rounding bounds used to decide that a pole is on the boundary
+within rounding."""
+
+
+def _projection(p: complex, discrete: bool) -> complex:
     if discrete:
-        return bool(np.any(np.abs(np.abs(poles) - 1.0) <= BOUNDARY_RTOL * 1e3))
-    scale = np.maximum(np.abs(poles), 1e-300)
-    return bool(np.any(np.abs(poles.real) <= BOUNDARY_RTOL * np.maximum(scale, 1.0)))
+        return p / abs(p) if abs(p) > 0 else complex(1.0)
+    return complex(0.0, p.imag)
+
+
+def _boundary_distance(p: complex, discrete: bool) -> float:
+    if discrete:
+        return abs(abs(p) - 1.0)
+    return abs(p.real) / max(abs(p), 1.0)
+
+
+def _on_boundary_within_rounding(r: Realization, lam: complex) -> bool:
+    """True when the STORED model has a pole at the boundary point ``lam`` within rounding.
+
+    State space: ``σ_min(λI - A) <= 4 u max(||A||_F, |λ|)``: rounding every entry of A
+    (|E| <= u|A|, so ||E||_2 <= u ||A||_F) can make λ an eigenvalue (the normwise
+    backward error of λ as an eigenvalue is σ_min(λI - A), Higham 2nd ed., section 7.2
+    applied to λI - A). A stored exact integrator, also one seen through rounded
+    coordinates, passes; an ill-conditioned but clearly damped pole (|Re p| = 3.6e-6 next
+    to ||A|| = 1e6) does not. Transfer function: a stored denominator vanishes at λ within
+    the rounding bound of Horner's rule (Higham, section 5.1). Zero-pole-gain: a stored
+    pole is within a few units of rounding of λ.
+    """
+    from .stored_evaluation import (UNIT_ROUNDOFF, StoredTransferFunction,
+                                    StoredZerosPolesGain, _horner_with_bound)
+
+    stored = r.stored
+    if stored is None:
+        n = r.order
+        if n == 0:
+            return False
+        m = lam * np.eye(n) - r.a
+        smin = float(np.linalg.svd(m, compute_uv=False)[-1])
+        return smin <= 4.0 * UNIT_ROUNDOFF * max(float(np.linalg.norm(r.a)), abs(lam))
+    if isinstance(stored, StoredZerosPolesGain):
+        for q in stored.poles():
+            if abs(q - lam) <= ROUNDING_SAFETY * UNIT_ROUNDOFF * max(abs(q), 1.0):
+                return True
+        return False
+    if isinstance(stored, StoredTransferFunction):
+        for _, _, _, den in stored.channels():
+            val, bound = _horner_with_bound(np.asarray(den, dtype=float), np.array([complex(lam)]))
+            if abs(val[0]) <= ROUNDING_SAFETY * float(bound[0]):
+                return True
+        return False
+    return False
+
+
+def boundary_poles_as_stored(models: list[Realization]) -> list[complex]:
+    """Boundary points (imaginary axis / unit circle) where a model, as stored, has a
+    pole within rounding. A pole merely close to the boundary (|z| = 1 - 2.4e-7, say)
+    is not on it: its model is compared on the boundary itself."""
+    out: list[complex] = []
+    for r in models:
+        discrete = r.is_discrete
+        candidates = r.stored.poles() if r.stored is not None else r.poles()
+        for p in np.asarray(candidates, dtype=complex).ravel():
+            if not np.isfinite(p) or _boundary_distance(complex(p), discrete) > BOUNDARY_PREFILTER:
+                continue
+            lam = _projection(complex(p), discrete)
+            if any(abs(lam - q) <= 1e-9 * max(abs(q), 1.0) for q in out):
+                continue
+            if any(_on_boundary_within_rounding(m, lam) for m in models):
+                out.append(lam)
+    return out
+
+
+SHIFT_STEPS = (1e-4, 2e-4, 5e-4, 1e-3, 2e-3, 5e-3, 1e-2, 2e-2, 5e-2, 0.1)
+"""Candidate contour shifts, smallest first: relative to the geometric mean pole
+magnitude (continuous, σ) or as ρ - 1 (discrete). The least one that keeps every other
+pole at least the shift itself away from the contour is used."""
 
 
 def choose_contour(models: list[Realization]) -> Contour:
-    """Pick the comparison contour for a set of comparable models (see :class:`Contour`)."""
+    """Pick the comparison contour for a set of comparable models (see :class:`Contour`).
+
+    The contour is shifted only when a model has a pole ON the stability boundary as
+    stored (within rounding, :func:`boundary_poles_as_stored`), and then by the least
+    amount of :data:`SHIFT_STEPS` that keeps every pole at least that far from the shifted
+    contour.
+    """
     discrete = models[0].is_discrete
-    poles = np.concatenate([m.poles() for m in models]) if models else np.zeros(0)
-    if not _near_boundary(poles, discrete):
+    on_boundary = boundary_poles_as_stored(models) if models else []
+    if not on_boundary:
         return Contour(False, 1.0 if discrete else 0.0, "")
+    poles = np.concatenate([m.poles() for m in models]) if models else np.zeros(0)
+    where = ", ".join(_fmt_complex(p) for p in on_boundary[:4])
     if discrete:
-        best, best_dist = 1.01, -1.0
-        for rho in (1.001, 1.002, 1.005, 1.01, 1.02, 1.05):
-            dist = float(np.min(np.abs(np.abs(poles) - rho))) if poles.size else 1.0
-            if dist > best_dist * 1.5:
-                best, best_dist = rho, dist
+        best = 1.0 + SHIFT_STEPS[-1]
+        for step in SHIFT_STEPS:
+            rho = 1.0 + step
+            if poles.size == 0 or float(np.min(np.abs(np.abs(poles) - rho))) >= step / 2:
+                best = rho
+                break
         return Contour(
             True,
             best,
-            f"circle |z| = {best:g} (a pole lies on the unit circle, where the gain is "
-            "unbounded)",
+            f"circle |z| = {best:g} (a pole lies on the unit circle as stored, at {where}, "
+            "where the gain is unbounded)",
         )
     nonzero = np.abs(poles[np.abs(poles) > 0])
     ref = float(np.exp(np.mean(np.log(nonzero)))) if nonzero.size else 1.0
-    best, best_dist = 1e-3 * ref, -1.0
-    for mult in (1e-3, 2e-3, 5e-3, 1e-2, 2e-2, 5e-2, 0.1):
-        sigma = mult * ref
-        dist = float(np.min(np.abs(poles.real - sigma))) / sigma
-        if dist > best_dist * 1.5:
-            best, best_dist = sigma, dist
+    best = SHIFT_STEPS[-1] * ref
+    for step in SHIFT_STEPS:
+        sigma = step * ref
+        if poles.size == 0 or float(np.min(np.abs(poles.real - sigma))) >= sigma / 2:
+            best = sigma
+            break
     return Contour(
         True,
         best,
-        f"line Re(s) = {best:.3g} (a pole lies on the imaginary axis, where the gain is "
-        "unbounded)",
+        f"line Re(s) = {best:.3g} (a pole lies on the imaginary axis as stored, at {where}, "
+        "where the gain is unbounded)",
     )
 
 
@@ -254,15 +337,14 @@ def is_unstable_mode(p: complex, discrete: bool) -> bool:
 
 def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = None) -> tuple[Evidence, Any]:
     """Minimal order and hidden modes of one model (orthogonal staircase)."""
-    from .structure import minimal_realization
+    from .structure import minimal_realization, mode_couplings
 
     start = time.perf_counter()
     mr = minimal_realization(r, tol=tol)
-    discrete = r.is_discrete
-    hidden = [
-        (complex(p), "uncontrollable") for p in np.asarray(mr.uncontrollable_modes)
-    ] + [(complex(p), "unobservable") for p in np.asarray(mr.unobservable_modes)]
-    unstable_hidden = [(p, how) for p, how in hidden if is_unstable_mode(p, discrete)]
+    couplings = mode_couplings(r, tol=tol, minimal=mr)  # hidden / nearly hidden, with levels
+    flagged = [m.as_dict() for m in couplings.flagged]
+    hidden = [(complex(*m["location"]), m["kind"]) for m in flagged if m["classification"] == "hidden"]
+    unstable_hidden = [(complex(*m["location"]), m["kind"]) for m in flagged if m["unstable"]]
     if not hidden:
         summary = f"{label}: minimal (order {r.order})"
     else:
@@ -270,12 +352,15 @@ def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = No
             f"{label}: order {r.order}, minimal order {mr.order}; "
             f"{len(hidden)} hidden mode(s)"
         )
-        if unstable_hidden:
-            where = ", ".join(f"{_fmt_complex(p)} ({how})" for p, how in unstable_hidden)
-            summary += f", UNSTABLE hidden mode(s) at {where}"
+    if unstable_hidden:
+        where = ", ".join(f"{_fmt_complex(p)} ({how})" for p, how in unstable_hidden)
+        summary += f", UNSTABLE hidden or nearly hidden mode(s) at {where}"
     clear = bool(mr.decisions_clear)
     if not clear:
         summary += "; some rank decisions had no clear singular-value gap"
+    stored = getattr(r, "stored", None)
+    if stored is not None:
+        summary += f" (computed on the realization of the {stored.describe()}, a converted copy)"
     decisions = [d.as_dict() for d in mr.decisions]
     worst_gap = min((float(d.gap) for d in mr.decisions), default=float("inf"))
     ev = Evidence(
@@ -292,13 +377,14 @@ def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = No
         details={
             "order": r.order,
             "minimal_order": mr.order,
-            "hidden_modes": [
-                {"location": [p.real, p.imag], "kind": how, "unstable": is_unstable_mode(p, discrete)}
-                for p, how in hidden
-            ],
+            "hidden_modes": [m for m in flagged if m["classification"] == "hidden"],
+            "nearly_hidden_modes": [m for m in flagged if m["classification"] == "nearly_hidden"],
+            "mode_coupling_thresholds": couplings.as_dict()["thresholds"],
             "unstable_hidden_modes": len(unstable_hidden),
             "rank_decisions": decisions,
             "smallest_gap": worst_gap,
+            "computed_from": "state-space matrices as stored" if stored is None else
+            f"realization of the {stored.describe()} (converted copy)",
         },
     )
     return ev, mr

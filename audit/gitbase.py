@@ -25,6 +25,11 @@ Each file is classified as
 ``changed``
     a different transfer function, with the explanation and diagnosis of the comparison
     (or the reason the two versions cannot be compared, e.g. a new input);
+``changed_internal_stability``
+    the same transfer function (or an inconclusive comparison), but the new version has
+    an unstable or marginally stable hidden or nearly hidden mode that the old one does
+    not have (:mod:`audit.internal_stability`) and no ``[[accept_hidden_instability]]``
+    entry of the manifest accepts it; ``problems`` lists them (accepted ones too);
 ``inconclusive``, ``new``, ``deleted``, ``unreadable`` (with the error message).
 
 No numerical method is implemented here (git is run as a subprocess; the evidence comes
@@ -44,7 +49,14 @@ from pathlib import Path, PurePosixPath
 from typing import Any, Literal
 
 from .errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
-from .manifest import ManifestFile, coordinate_change, decisive_peak, glob_matches
+from .manifest import (
+    ManifestFile,
+    coordinate_change,
+    decisive_peak,
+    glob_matches,
+    internal_stability_problems,
+    problem_sentences,
+)
 
 __all__ = [
     "GIT_TIMEOUT_SECONDS",
@@ -60,7 +72,8 @@ __all__ = [
 #: Each git subprocess is stopped after this many seconds.
 GIT_TIMEOUT_SECONDS = 120.0
 
-ChangeStatus = Literal["unchanged", "changed", "inconclusive", "new", "deleted", "unreadable"]
+ChangeStatus = Literal["unchanged", "changed", "changed_internal_stability", "inconclusive",
+                       "new", "deleted", "unreadable"]
 
 
 class GitBaseError(AuditError, ValueError):
@@ -302,6 +315,9 @@ class FileChange:
     details : dict
         The full comparison (:meth:`audit.verdict.PairComparison.as_dict`) when one ran.
     seconds : float
+    problems : tuple of dict
+        New unstable / marginal hidden or nearly hidden modes (the compare report's
+        ``problems`` entries), accepted or not.
     """
 
     path: str
@@ -316,6 +332,7 @@ class FileChange:
     warnings: tuple[str, ...] = ()
     details: dict[str, Any] = field(default_factory=dict)
     seconds: float = 0.0
+    problems: tuple[dict[str, Any], ...] = ()
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-friendly dictionary (floats, lists, strings; complex as [re, im])."""
@@ -334,30 +351,27 @@ class FileChange:
             "warnings": list(self.warnings),
             "details": to_jsonable(self.details),
             "seconds": round(float(self.seconds), 6),
+            "problems": to_jsonable(list(self.problems)),
         }
 
 
 # -------------------------------------------------------------- model reading
 def _looks_like_model(data: bytes, suffix: str) -> bool | None:
-    """True: a model document; False: parses but is something else; None: unparseable."""
-    import json
-    import tomllib
+    """True: a model document; False: parses but is something else; None: unparseable.
 
-    import yaml
+    Parsed with the same hardened readers as model files (depth and integer-size limits,
+    YAML 1.2 core schema), so a hostile file in any revision is "unreadable", not a crash.
+    """
+    from .loading import _parse_json, _parse_toml, _parse_yaml
 
     if suffix == ".npz":
         return True
+    parsers = {".json": _parse_json, ".toml": _parse_toml, ".yaml": _parse_yaml, ".yml": _parse_yaml}
+    if suffix not in parsers:
+        return None
     try:
-        text = data.decode("utf-8-sig")
-        if suffix == ".json":
-            parsed = json.loads(text)
-        elif suffix == ".toml":
-            parsed = tomllib.loads(text)
-        elif suffix in (".yaml", ".yml"):
-            parsed = yaml.safe_load(text)
-        else:
-            return None
-    except (ValueError, yaml.YAMLError):
+        parsed = parsers[suffix](data.decode("utf-8-sig"), "revision")
+    except (AuditError, UnicodeDecodeError, RecursionError):
         return None
     return isinstance(parsed, dict) and "lti_model" in parsed
 
@@ -434,7 +448,7 @@ def classify_changes(
     for f in files:
         start = time.perf_counter()
         result = _classify_one(f, commit, ref, root, manifest.directory, strict, tol,
-                               escalation_seconds)
+                               escalation_seconds, manifest.content.accept_hidden_instability)
         if result is None:
             skipped.append(f.path)
             continue
@@ -443,7 +457,8 @@ def classify_changes(
 
 
 def _classify_one(f: ChangedFile, commit: str, ref: str, root: Path, directory: Path,
-                  strict: bool, rtol: float, escalation_seconds: float | None) -> FileChange | None:
+                  strict: bool, rtol: float, escalation_seconds: float | None,
+                  acceptances: Sequence[Any] = ()) -> FileChange | None:
     suffix = PurePosixPath(f.path).suffix.lower()
     old_label = f"{f.old_path or f.path}@{ref}"
     base = dict(path=f.path, old_path=f.old_path if f.old_path != f.path else None,
@@ -478,11 +493,12 @@ def _classify_one(f: ChangedFile, commit: str, ref: str, root: Path, directory: 
     except (InvalidModelError, NumericalTroubleError) as exc:
         return FileChange(**base, status="unreadable",
                           explanation=f"the version at {ref} cannot be read: {exc}")
-    return _compare_versions(base, old, new, rtol, escalation_seconds)
+    return _compare_versions(base, old, new, rtol, escalation_seconds, acceptances)
 
 
 def _compare_versions(base: dict[str, Any], old: Any, new: Any, rtol: float,
-                      escalation_seconds: float | None) -> FileChange:
+                      escalation_seconds: float | None,
+                      acceptances: Sequence[Any] = ()) -> FileChange:
     from .realization import check_comparable
     from .verdict import Options, compare_pair
 
@@ -499,8 +515,17 @@ def _compare_versions(base: dict[str, Any], old: Any, new: Any, rtol: float,
         return FileChange(**base, status="inconclusive",
                           explanation=f"a computation could not be trusted: {exc}")
     peak, freq = decisive_peak(pair)
+    problems = internal_stability_problems(old, new, base["path"], acceptances)
     common = dict(peak_relative_difference=peak, peak_frequency_rad_s=freq,
-                  warnings=tuple(pair.warnings), details=pair.as_dict())
+                  warnings=tuple(pair.warnings), details=pair.as_dict(),
+                  problems=tuple(problems))
+    if pair.verdict != "different" and any(not p["accepted"] for p in problems):
+        return FileChange(**base, **common, status="changed_internal_stability",
+                          explanation=f"{problem_sentences(problems)} Input-output: "
+                          f"{pair.explanation}")
+    if problems:  # accepted ones, or a changed transfer function as well: say so
+        pair_text = f"{pair.explanation} {problem_sentences(problems)}"
+        pair = dataclasses.replace(pair, explanation=pair_text)
     if pair.verdict == "equivalent":
         kind, words, _ = coordinate_change(old, new, pair)
         return FileChange(**base, **common, status="unchanged", coordinate_change=kind,

@@ -100,7 +100,7 @@ color:#fff;text-transform:uppercase;letter-spacing:.06em;font-size:.95em}
 .v-equivalent,.o-pass,.o-holds{background:#1d7a4a}
 .v-different,.o-fail,.o-fails{background:var(--alarm)}
 .v-inconclusive,.o-unclear,.o-not_checkable{background:var(--amber)}
-.v-not_compared,.o-info,.o-skipped{background:#6b7280}
+.v-not_compared,.o-info,.o-skipped,.o-not_computed{background:#6b7280}
 .v-problem{background:repeating-linear-gradient(135deg,#5a0b12 0 10px,#7d1420 10px 20px);
 margin-left:.6em}
 td.o{color:#fff;font-weight:700;text-align:center;white-space:nowrap}
@@ -129,6 +129,16 @@ if(t.classList&&t.classList.contains('plot')){im.src=t.src;im.alt=t.alt;z.style.
 z.scrollTop=0;z.scrollLeft=0;e.preventDefault();}else if(z.contains(t)){z.style.display='none';}});
 document.addEventListener('keydown',function(e){if(e.key==='Escape'){z.style.display='none';}});})();
 """
+
+
+def zoom_script_csp_source() -> str:
+    """The Content-Security-Policy source that lets exactly this page's zoom script run
+    (its SHA-256 hash, CSP Level 2); any other inline or injected script stays blocked."""
+    import base64
+    import hashlib
+
+    digest = hashlib.sha256(_ZOOM_SCRIPT.encode("utf-8")).digest()
+    return "'sha256-" + base64.b64encode(digest).decode("ascii") + "'"
 
 
 # --------------------------------------------------------------------- helpers
@@ -918,8 +928,15 @@ def render_compare_html(
         f"<p>lti-audit {_e(data.get('lti_audit_version', ''))}; tolerances: rtol = "
         f"{_e(_num(tol.get('rtol')))}, rank_tol = "
         f"{_e(_num(tol.get('rank_tol')) if tol.get('rank_tol') is not None else 'scale-aware default')}, "
-        f"escalation budget {_e(_num(tol.get('escalation_seconds')))} s; computed in "
-        f"{_e(_num(data.get('seconds')))} s.</p>",
+        f"escalation budget {_e(_num(tol.get('escalation_seconds')))} s"
+        + (f"; atol = {_e(_num(tol.get('atol')))}" if tol.get("atol") else "")
+        + (f"; band of interest {_e(_num(tol['band_rad_s'][0]))} to {_e(_num(tol['band_rad_s'][1]))} rad/s"
+           if tol.get("band_rad_s") else "")
+        + "".join(f"; rtol = {_e(_num(ch.get('rtol')))} for {_e(ch.get('label', ''))}"
+                  for ch in tol.get("channel_rtol") or [])
+        + f"; computed in {_e(_num(data.get('seconds')))} s.</p>"
+        + (f"<p>Tolerance rule: {_e(tol.get('rule', ''))}.</p>"
+           if tol.get("atol") or tol.get("band_rad_s") or tol.get("channel_rtol") else ""),
         "</div></header><main>",
     ]
     if problems:

@@ -1,9 +1,10 @@
 """Properties of one model: order, minimal order, stability, poles, zeros, gains,
 hidden modes, conditioning of the realization, and its claimed form.
 
-A *problem* (exit status 1 from ``lti-audit inspect``) is an unstable hidden mode or a
-claimed form the realization is not in. Stable hidden modes and poor conditioning are
-reported as notes. Rank decisions without a clear singular-value gap make the
+A *problem* (exit status 1 from ``lti-audit inspect``) is an unstable or marginally
+stable hidden or nearly hidden mode (:func:`audit.structure.mode_couplings`) or a
+claimed form the realization is not in. Stable hidden and nearly hidden modes and poor
+conditioning are reported as notes. Rank decisions without a clear singular-value gap make the
 inspection ``inconclusive``.
 """
 
@@ -136,17 +137,23 @@ def _inspect_model(r: Realization, *, claimed_form: str | None, rank_tol: float 
                 "certified": bool(getattr(pk, "certified", False))}
     except NumericalTroubleError as exc:
         peak = {"value": None, "note": str(exc)}
+    except np.linalg.LinAlgError:  # norms.peak_gain evaluates at a pole exactly on the boundary
+        peak = {"value": None, "note": "not computed: the frequency response is unbounded "
+                "(a pole lies on the stability boundary)"}
     cond = _conditioning(r)
     problems: list[str] = []
     notes: list[str] = []
     hidden = ev_min.details["hidden_modes"]
-    unstable_hidden = [h for h in hidden if h["unstable"]]
-    if unstable_hidden:
-        where = ", ".join(fmt_complex(complex(*h["location"])) + f" ({h['kind']})" for h in unstable_hidden)
-        problems.append(f"UNSTABLE HIDDEN MODE at {where}: input-output behaviour hides an "
-                        "internally unstable state")
-    elif hidden:
-        notes.append(f"{len(hidden)} stable hidden mode(s); minimal order {mr.order} of {r.order}")
+    nearly = ev_min.details["nearly_hidden_modes"]
+    for h in [h for h in hidden + nearly if h["unstable"]]:
+        problems.append(hidden_mode_sentence(h) + ": the input-output behaviour hides an "
+                        "internally " + ("unstable" if h["stability"] == "unstable" else
+                                         "marginally stable") + " state")
+    stable_hidden = [h for h in hidden if not h["unstable"]]
+    if stable_hidden:
+        notes.append(f"{len(stable_hidden)} stable hidden mode(s); minimal order {mr.order} of {r.order}")
+    for h in [h for h in nearly if not h["unstable"]]:
+        notes.append(hidden_mode_sentence(h))
     if cond["eigenvector_condition"] > ILL_CONDITIONED:
         notes.append(f"poles are sensitive in these coordinates: eigenvector matrix condition "
                      f"number {cond['eigenvector_condition']:.1e}")
@@ -177,6 +184,8 @@ def _inspect_model(r: Realization, *, claimed_form: str | None, rank_tol: float 
         "high_frequency_gain": None if hf is None else np.asarray(hf).real.tolist(),
         "peak_gain": peak,
         "hidden_modes": hidden,
+        "nearly_hidden_modes": nearly,
+        "mode_coupling_thresholds": ev_min.details["mode_coupling_thresholds"],
         "conditioning": cond,
         "claimed_form": form_info,
         "recognised_forms": recognised,
@@ -192,12 +201,42 @@ def _inspect_model(r: Realization, *, claimed_form: str | None, rank_tol: float 
     )
 
 
+_SIDE = {"uncontrollable": "inputs", "unobservable": "outputs",
+         "uncontrollable_and_unobservable": "inputs and outputs"}
+
+
+def hidden_mode_sentence(h: dict[str, Any]) -> str:
+    """One sentence for a hidden or nearly hidden mode (an entry of ``hidden_modes`` /
+    ``nearly_hidden_modes``), with its coupling levels.
+
+    >>> hidden_mode_sentence({"location": [0.5, 0.0], "classification": "nearly_hidden",
+    ...     "kind": "unobservable", "stability": "unstable",
+    ...     "coupling": {"inputs": 0.36, "outputs": 1.9e-6, "joint": 7e-7}})
+    'UNSTABLE NEARLY HIDDEN MODE at 0.5 (weakly coupled to the outputs: input coupling 0.36, output coupling 1.9e-06, joint 7e-07)'
+    """
+    where = fmt_complex(complex(*h["location"]))
+    c = h["coupling"]
+    levels = f"input coupling {c['inputs']:.2g}, output coupling {c['outputs']:.2g}, joint {c['joint']:.2g}"
+    state = {"unstable": "UNSTABLE ", "marginal": "MARGINALLY STABLE "}.get(h["stability"], "stable ")
+    if h["classification"] == "hidden":
+        return f"{state}HIDDEN MODE at {where} ({h['kind']}: {levels})"
+    return (f"{state}NEARLY HIDDEN MODE at {where} (weakly coupled to the "
+            f"{_SIDE.get(h['kind'] or '', 'inputs and outputs')}: {levels})")
+
+
 def _check_form(r: Realization, claimed: str) -> tuple[dict[str, Any], str | None]:
     try:
         from .forms import check_claimed_form
     except ImportError:  # pragma: no cover - forms module ships with the package
         return {"claimed": claimed, "checked": False}, None
-    res = check_claimed_form(r, claimed)
+    from .errors import InvalidModelError
+
+    try:
+        res = check_claimed_form(r, claimed)
+    except InvalidModelError as exc:
+        # kalman / staircase forms depend on rank decisions and have no pattern to check;
+        # the model is still inspected (convert writes such documents)
+        return {"claimed": claimed, "checked": False, "reason": str(exc)}, None
     info = {"claimed": claimed, "checked": True, **to_jsonable(res.as_dict())}
     if res.holds:
         return info, None

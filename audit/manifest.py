@@ -23,8 +23,13 @@ A claims manifest is a TOML file (TOML v1.0.0, T. Preston-Werner, 2021), by defa
 
     [[claim]]
     models = ["models/speed_zoh_1ms.json"]
-    discretization = {method = "zoh", of = "models/speed_tf.json"}
+    discretization = {method = "zero-order-hold", of = "models/speed_tf.json"}
     rtol = 1e-8
+
+    [[accept_hidden_instability]]   # optional; a team knowingly accepts such a mode
+    model = "models/valve_supplier.json"
+    location = [0.5, 0.0]           # optional; omitted: every such mode of that model
+    reason = "stabilised by the drive's inner current loop (review 2024-117)"
 
 Model paths are relative to the manifest's directory, written with ``/``. Each claim
 says exactly one of ``expect``, ``form`` or ``discretization``:
@@ -47,6 +52,13 @@ says exactly one of ``expect``, ``form`` or ``discretization``:
 ``discretization = {method = ..., of = ..., prewarp_frequency = ...}``
     every listed (discrete-time) model is that discretization of the continuous-time
     model ``of`` (:func:`audit.discretization.check_discretization_claim`).
+
+Internal stability is part of "unchanged" (:mod:`audit.internal_stability`): an
+``equivalent`` or ``similar`` claim fails when a model has an unstable or marginally
+stable hidden or nearly hidden mode that the first model does not have, and
+``check --against`` classifies such a file ``changed_internal_stability``, unless an
+``[[accept_hidden_instability]]`` entry names the model (and, when given, the mode's
+location) with a reason; the reason is printed with the result.
 
 Tolerances: a claim's own ``rtol``, else the caller's default (``--rtol``), else the
 manifest's top-level ``rtol``, else :data:`audit.evidence.DEFAULT_RTOL` (form claims:
@@ -75,6 +87,7 @@ from typing import Any, Literal
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, StrictStr, ValidationError, field_validator, model_validator
 
+from .discretization_methods import DiscretizationMethod, accepted_methods_text, discretization_method
 from .errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 
 __all__ = [
@@ -89,12 +102,16 @@ __all__ = [
     "CoordinateChange",
     "DiscretizationSpec",
     "FileSelection",
+    "HiddenInstabilityAcceptance",
     "InvalidManifestError",
     "ManifestFile",
+    "accepted_reason",
     "coordinate_change",
     "evaluate_claim",
     "evaluate_claims",
     "glob_matches",
+    "internal_stability_problems",
+    "problem_sentences",
     "load_claims_manifest",
     "parse_claims_manifest",
 ]
@@ -266,11 +283,19 @@ class DiscretizationSpec(BaseModel):
 
     model_config = _CONFIG
 
-    method: Literal["zoh", "foh", "tustin", "matched", "impulse"] = Field(
-        description="Discretization method (see audit.discretization).")
+    method: DiscretizationMethod = Field(
+        description="Discretization method: " + accepted_methods_text() + ".")
     of: StrictStr = Field(description="The continuous-time model, relative to the manifest.")
     prewarp_frequency: float | None = Field(
-        default=None, description="Tustin prewarping frequency in rad/s (optional).")
+        default=None, description="Prewarp frequency in rad/s of the bilinear method (optional).")
+
+    @field_validator("method", mode="before")
+    @classmethod
+    def _method(cls, value: Any) -> Any:
+        try:
+            return discretization_method(value, field="method")
+        except InvalidModelError as exc:  # pydantic wants ValueError with a plain message
+            raise ValueError(str(exc).removeprefix("method: ")) from None
 
     @field_validator("of")
     @classmethod
@@ -305,6 +330,17 @@ class Claim(BaseModel):
     discretization: DiscretizationSpec | None = Field(
         default=None, description="Every listed model is this discretization of 'of'.")
     rtol: float | None = Field(default=None, description="Relative tolerance of this claim.")
+    atol: float | None = Field(
+        default=None, description="expect claims: absolute tolerance on the difference, in the "
+        "models' gain units (output units per input unit); a difference within the larger of "
+        "rtol x peak gain and atol passes.")
+    band_rad_s: list[float] | None = Field(
+        default=None, min_length=2, max_length=2, description="expect claims: band of interest "
+        "[low, high] in rad/s; only the difference inside it decides (the rest is reported).")
+    channel_rtol: dict[str, float] | None = Field(
+        default=None, description="expect claims: relative tolerance per channel, keys 'OUT:IN' "
+        "or 'OUT' (0-based index, signal name from the first model's document, or *); the "
+        "decision is then made channel by channel.")
     reason: StrictStr = Field(default="", description="Why the claim is expected to hold.")
 
     @field_validator("models")
@@ -317,6 +353,45 @@ class Claim(BaseModel):
     def _rtol(cls, value: float | None) -> float | None:
         return _check_rtol(value)
 
+    @field_validator("atol")
+    @classmethod
+    def _atol(cls, value: float | None) -> float | None:
+        if value is not None and not (math.isfinite(value) and value >= 0):
+            raise ValueError(f"got {value!r}, expected a finite number >= 0 in the models' gain units")
+        return value
+
+    @field_validator("band_rad_s")
+    @classmethod
+    def _band(cls, value: list[float] | None) -> list[float] | None:
+        if value is not None:
+            from .band_peak import check_band
+
+            try:
+                check_band(value)
+            except InvalidModelError as exc:
+                raise ValueError(str(exc).removeprefix("band: ")) from None
+        return value
+
+    @field_validator("channel_rtol")
+    @classmethod
+    def _channels(cls, value: dict[str, float] | None) -> dict[str, float] | None:
+        if value is not None:
+            from .tolerances import parse_channel_tolerance
+
+            for key, v in value.items():
+                try:
+                    parse_channel_tolerance(f"{key}={v!r}", field="entry")
+                except InvalidModelError as exc:
+                    raise ValueError(str(exc)) from None
+        return value
+
+    def channel_tolerances(self) -> list[Any]:
+        """The ``channel_rtol`` entries as :class:`audit.tolerances.ChannelTolerance`."""
+        from .tolerances import parse_channel_tolerance
+
+        return [parse_channel_tolerance(f"{k}={v!r}", field=f"channel_rtol {k!r}")
+                for k, v in (self.channel_rtol or {}).items()]
+
     @model_validator(mode="after")
     def _one_kind(self) -> "Claim":
         given = [k for k in ("expect", "form", "discretization") if getattr(self, k) is not None]
@@ -327,7 +402,22 @@ class Claim(BaseModel):
         if self.expect is not None and len(self.models) < 2:
             raise ValueError(f"expect = {self.expect!r} needs at least two models, got "
                              f"{len(self.models)}")
+        stated = [k for k in ("atol", "band_rad_s", "channel_rtol") if getattr(self, k) is not None]
+        if stated and self.expect is None:
+            raise ValueError(f"{', '.join(stated)} apply to expect claims (equivalent, similar, "
+                             "different), not to form or discretization claims")
         return self
+
+    def tolerance_words(self) -> str:
+        """The tolerances stated beyond rtol, in words ("" when none)."""
+        parts = []
+        if self.atol:
+            parts.append(f"atol {self.atol:g}")
+        if self.band_rad_s is not None:
+            parts.append(f"band {self.band_rad_s[0]:g} to {self.band_rad_s[1]:g} rad/s")
+        for k, v in (self.channel_rtol or {}).items():
+            parts.append(f"rtol {v:g} on channel {k}")
+        return ", ".join(parts)
 
     @property
     def kind(self) -> ClaimKind:
@@ -336,15 +426,86 @@ class Claim(BaseModel):
         return "form" if self.form is not None else "discretization"
 
     def describe(self) -> str:
-        """The expectation in words, e.g. ``"zoh discretization of models/c.json"``."""
+        """The expectation in words, e.g. ``"zero-order-hold discretization of models/c.json"``."""
         if self.expect is not None:
-            return self.expect
+            words = self.tolerance_words()
+            return self.expect + (f" ({words})" if words else "")
         if self.form is not None:
             return f"{self.form} form"
         spec = self.discretization
         assert spec is not None
         pw = "" if spec.prewarp_frequency is None else f" (prewarp {spec.prewarp_frequency:g} rad/s)"
         return f"{spec.method}{pw} discretization of {spec.of}"
+
+
+class HiddenInstabilityAcceptance(BaseModel):
+    """An explicit acceptance of an unstable / marginal hidden or nearly hidden mode."""
+
+    model_config = _CONFIG
+
+    model: StrictStr = Field(description="The model file that may have the mode, relative "
+                             "to the manifest.")
+    location: list[float] | None = Field(
+        default=None, min_length=2, max_length=2,
+        description="[re, im] of the accepted mode (matched within a relative 1e-6); "
+        "omitted: every such mode of the model.")
+    reason: StrictStr = Field(description="Why the mode is accepted; printed in the reports.")
+
+    @field_validator("model")
+    @classmethod
+    def _model(cls, value: str) -> str:
+        return _check_relative_path(value)
+
+    @field_validator("reason")
+    @classmethod
+    def _reason(cls, value: str) -> str:
+        if not value.strip():
+            raise ValueError("is empty; say why the hidden mode is accepted")
+        return value.strip()
+
+    def covers(self, model: str, location: Sequence[float]) -> bool:
+        """Whether this acceptance applies to the mode at ``location`` of ``model``."""
+        from .internal_stability import MODE_MATCH_RTOL
+
+        if PurePosixPath(self.model) != PurePosixPath(model):
+            return False
+        if self.location is None:
+            return True
+        z, w = complex(*self.location), complex(*location)
+        return abs(z - w) <= MODE_MATCH_RTOL * max(1.0, abs(z))
+
+
+def accepted_reason(acceptances: Sequence[HiddenInstabilityAcceptance], model: str,
+                    location: Sequence[float]) -> str | None:
+    """The reason of the first acceptance covering that mode, else None."""
+    for acc in acceptances:
+        if acc.covers(model, location):
+            return acc.reason
+    return None
+
+
+def internal_stability_problems(reference: Any, other: Any, model_path: str,
+                                acceptances: Sequence[HiddenInstabilityAcceptance],
+                                rank_tol: float | None = None) -> list[dict[str, Any]]:
+    """Problems of ``other`` against ``reference`` (:func:`audit.internal_stability.
+    hidden_mode_problems`), each accepted when an acceptance covers it."""
+    from .internal_stability import hidden_mode_problems, model_modes
+
+    ref = model_modes(reference, label=reference.name, rank_tol=rank_tol)
+    new = model_modes(other, label=other.name, rank_tol=rank_tol)
+    problems = hidden_mode_problems(ref, [new])
+    for p in problems:
+        why = accepted_reason(acceptances, model_path, p["location"])
+        if why is not None:
+            p["accepted"], p["reason"] = True, why
+    return problems
+
+
+def problem_sentences(problems: Sequence[dict[str, Any]]) -> str:
+    """Plain sentences for an explanation: unaccepted problems, then accepted ones."""
+    out = [f"Internal stability changed: {p['message']}." for p in problems if not p["accepted"]]
+    out += [f"Accepted: {p['message']} (reason: {p['reason']})." for p in problems if p["accepted"]]
+    return " ".join(out)
 
 
 class ClaimsManifest(BaseModel):
@@ -359,6 +520,10 @@ class ClaimsManifest(BaseModel):
                                  description="Files compared by `lti-audit check --against`.")
     claims: list[Claim] = Field(default_factory=list, alias="claim",
                                 description="The claims, written as [[claim]] tables.")
+    accept_hidden_instability: list[HiddenInstabilityAcceptance] = Field(
+        default_factory=list,
+        description="Unstable or marginal hidden / nearly hidden modes a team accepts "
+        "knowingly, each with a reason ([[accept_hidden_instability]] tables).")
 
     @field_validator("rtol")
     @classmethod
@@ -695,6 +860,10 @@ def coordinate_change(r1: Any, r2: Any, pair: Any) -> tuple[CoordinateChange, st
     if _identical(r1, r2):
         return "identical", "the realization is identical (same matrices)", True
     minimal = [e for e in pair.evidence if e.key.startswith("minimal_order:")]
+    if any(e.value is None for e in minimal):
+        return ("transfer_only", "the minimal order of a realization could not be computed, so "
+                "'only state coordinates changed' is not decided; the transfer function is the "
+                "same", False)
     orders = [int(round(float(e.value))) for e in minimal if e.value is not None]
     both_minimal = len(orders) == 2 and orders[0] == r1.order and orders[1] == r2.order
     if r1.order != r2.order:
@@ -755,6 +924,18 @@ class _Models:
             raise InvalidModelError(got.message)
         return got
 
+    def signal_names(self, rel: str) -> dict[str, list[str] | None]:
+        """``{"inputs": [...], "outputs": [...]}``: signal names of a model document."""
+        from .loading import load_model_document
+
+        self.get(rel)  # raises the load error, if any
+        try:
+            doc = load_model_document(self.directory / rel)
+        except AuditError:
+            return {"inputs": None, "outputs": None}
+        return {k: [s.name for s in getattr(doc, k)] if getattr(doc, k, None) else None
+                for k in ("inputs", "outputs")}
+
 
 @dataclass(frozen=True)
 class _LoadFailure:
@@ -772,6 +953,7 @@ def evaluate_claim(
     directory: str | Path,
     default_rtol: float | None = None,
     escalation_seconds: float | None = None,
+    acceptances: Sequence[HiddenInstabilityAcceptance] = (),
     _models: _Models | None = None,
 ) -> ClaimResult:
     """Check one claim.
@@ -788,6 +970,8 @@ def evaluate_claim(
     escalation_seconds : float or None, keyword-only
         Extended-precision budget per pair (:class:`audit.verdict.Options`); 0 disables
         it, ``None`` keeps the default.
+    acceptances : sequence of HiddenInstabilityAcceptance, keyword-only
+        The manifest's ``[[accept_hidden_instability]]`` entries.
 
     Returns
     -------
@@ -820,7 +1004,7 @@ def evaluate_claim(
         elif kind == "discretization":
             fields = _check_discretization(claim, models, rtol)
         else:
-            fields = _check_relation(claim, models, rtol, escalation_seconds)
+            fields = _check_relation(claim, models, rtol, escalation_seconds, acceptances)
     except (InvalidModelError, IncompatibleModelsError) as exc:
         fields = {"status": "error", "explanation": str(exc)}
     except NumericalTroubleError as exc:
@@ -829,16 +1013,37 @@ def evaluate_claim(
     return ClaimResult(**base, **fields, seconds=time.perf_counter() - start)  # type: ignore[arg-type]
 
 
+def _stated_tolerances(claim: Claim, models: _Models, reference: Any) -> dict[str, Any]:
+    """The claim's atol, band and channel tolerances as Options fields (channel names
+    resolved against the first model's document)."""
+    from .tolerances import resolve_channel_tolerances
+
+    out: dict[str, Any] = {}
+    if claim.atol is not None:
+        out["atol"] = float(claim.atol)
+    if claim.band_rad_s is not None:
+        out["band"] = (float(claim.band_rad_s[0]), float(claim.band_rad_s[1]))
+    if claim.channel_rtol:
+        names = models.signal_names(claim.models[0])
+        out["channel_rtol"] = resolve_channel_tolerances(
+            claim.channel_tolerances(), n_outputs=reference.n_outputs, n_inputs=reference.n_inputs,
+            output_names=names.get("outputs"), input_names=names.get("inputs"),
+            field=f"channel_rtol of {claim.models[0]}")
+    return out
+
+
 def _check_relation(claim: Claim, models: _Models, rtol: float,
-                    escalation_seconds: float | None) -> dict[str, Any]:
+                    escalation_seconds: float | None,
+                    acceptances: Sequence[HiddenInstabilityAcceptance] = ()) -> dict[str, Any]:
     from .realization import check_comparable
     from .verdict import Options, compare_pair
 
     rs = [models.get(p) for p in claim.models]
     for r in rs[1:]:
         check_comparable(rs[0], r)
-    opts = Options(rtol=rtol) if escalation_seconds is None else Options(
-        rtol=rtol, escalate=escalation_seconds > 0, escalation_seconds=escalation_seconds)
+    opts = Options(rtol=rtol, **_stated_tolerances(claim, models, rs[0])) if escalation_seconds is None else Options(
+        rtol=rtol, escalate=escalation_seconds > 0, escalation_seconds=escalation_seconds,
+        **_stated_tolerances(claim, models, rs[0]))
     expect = claim.expect
     peak: float | None = None
     freq: float | None = None
@@ -876,6 +1081,13 @@ def _check_relation(claim: Claim, models: _Models, rtol: float,
                             f"is a change of state coordinates of it is not decided: {words}.")
         else:
             outcome, sentence = "holds", pair.explanation
+        if expect in ("equivalent", "similar"):
+            problems = internal_stability_problems(rs[0], r, r.name or "", acceptances)
+            if problems:
+                record["problems"] = problems
+                sentence += " " + problem_sentences(problems)
+                if outcome == "holds" and any(not p["accepted"] for p in problems):
+                    outcome = "fails"
         verdicts.append(outcome)
         sentences.append(sentence)
         details.append(record)
@@ -980,7 +1192,8 @@ def evaluate_claims(
     default = rtol if rtol is not None else manifest.content.rtol
     return tuple(
         evaluate_claim(c, index=i, directory=manifest.directory, default_rtol=default,
-                       escalation_seconds=escalation_seconds, _models=models)
+                       escalation_seconds=escalation_seconds,
+                       acceptances=manifest.content.accept_hidden_instability, _models=models)
         for i, c in enumerate(manifest.content.claims, start=1)
     )
 

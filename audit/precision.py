@@ -7,7 +7,11 @@ difference ``G1(λ) - G2(λ)`` is re-evaluated at the deciding frequencies in co
 ball (interval) arithmetic with python-flint (Arb; Johansson, "Arb: efficient
 arbitrary-precision midpoint-radius interval arithmetic", IEEE Trans. Computers, 2017).
 A ball contains the true value, so the result is a rigorous enclosure at each
-frequency evaluated, not an estimate.
+frequency evaluated, not an estimate. Each model is evaluated from what was stored: the
+matrices of a state-space model (a solve with ``λI - A``), the coefficients of a transfer
+function (Horner's rule on the exact stored coefficients) and the factors of a
+zero-pole-gain model (:mod:`audit.stored_evaluation`); a transfer function costs a few
+hundred ball operations per channel and frequency, far less than a matrix solve.
 """
 
 from __future__ import annotations
@@ -73,6 +77,11 @@ def _point(flint, omega: float, sample_period: float | None, shift: float | None
 
 
 def _transfer_at(flint, r: Realization, lam):  # type: ignore[no-untyped-def]
+    """G(λ) as a ball matrix, from the STORED representation: the matrices of a state
+    space model, the coefficients of a transfer function, the factors of a zero-pole-gain
+    model (never from a converted copy)."""
+    if getattr(r, "stored", None) is not None:
+        return r.stored.ball_at(flint, lam)
     d = _acb_matrix(flint, r.d)
     if r.order == 0:
         return d
@@ -85,8 +94,33 @@ def _transfer_at(flint, r: Realization, lam):  # type: ignore[no-untyped-def]
                 v = v + lam
             entries.append(v)
     pencil = flint.acb_mat(n, n, entries)
-    x = pencil.solve(_acb_matrix(flint, r.b))
-    return _acb_matrix(flint, r.c) * x + d
+    # Gaussian elimination in ball arithmetic first (rigorous, about 3x faster than the
+    # default preconditioned solve at 256 bits for n = 50); its balls can grow wide for
+    # large lightly damped models, and then the preconditioned solve is used.
+    b = _acb_matrix(flint, r.b)
+    c = _acb_matrix(flint, r.c)
+    try:
+        g = c * pencil.solve(b, algorithm="lu") + d
+        if _relative_width(g) <= LU_WIDTH_LIMIT:
+            return g
+    except (TypeError, ZeroDivisionError):  # TypeError: python-flint without the keyword
+        pass
+    return c * pencil.solve(b) + d
+
+
+LU_WIDTH_LIMIT = 1e-30
+"""Largest relative ball radius accepted from the plain LU solve (at 256 bits a
+well-behaved solve keeps radii near 1e-60 relative)."""
+
+
+def _relative_width(mat) -> float:  # type: ignore[no-untyped-def]
+    rad = mid = 0.0
+    for z in mat.entries():
+        rad = max(rad, float(z.real.rad()) + float(z.imag.rad()))
+        mid = max(mid, abs(complex(float(z.real.mid()), float(z.imag.mid()))))
+    if mid == 0.0:
+        return 0.0 if rad == 0.0 else float("inf")
+    return rad / mid
 
 
 def enclose_difference(

@@ -65,6 +65,12 @@ class Realization:
     d: FloatArray
     sample_period: float | None = None
     name: str = field(default="")
+    stored: Any = field(default=None)
+    """The representation the user stored, when it was not state space
+    (:class:`audit.stored_evaluation.StoredTransferFunction` or
+    :class:`~audit.stored_evaluation.StoredZerosPolesGain`); ``None`` for state space,
+    whose matrices are stored as given. The decisive evidence evaluates it directly;
+    the matrices are then a converted copy used for searches and explanations."""
 
     @classmethod
     def from_arrays(
@@ -150,7 +156,11 @@ class Realization:
         )
 
     def with_name(self, name: str) -> "Realization":
-        return Realization(self.a, self.b, self.c, self.d, self.sample_period, name)
+        return Realization(self.a, self.b, self.c, self.d, self.sample_period, name, self.stored)
+
+    def with_stored(self, stored: Any) -> "Realization":
+        """The same matrices, carrying the stored representation they were built from."""
+        return Realization(self.a, self.b, self.c, self.d, self.sample_period, self.name, stored)
 
     def poles(self) -> NDArray[np.complex128]:
         """Eigenvalues of A (all modes, including hidden ones)."""
@@ -199,7 +209,8 @@ def check_comparable(r1: Realization, r2: Realization) -> None:
         cont, disc = (label1, label2) if r1.sample_period is None else (label2, label1)
         raise IncompatibleModelsError(
             f"{cont} is continuous-time but {disc} is discrete-time; mixing them needs "
-            "a declared discretization method (--discretization zoh|foh|tustin|matched|impulse)"
+            "a declared discretization method (--discretization zero-order-hold, triangle-hold, "
+            "bilinear, matched-pole-zero or impulse-invariant)"
         )
     if not same_time_domain(r1, r2):
         raise IncompatibleModelsError(

@@ -42,7 +42,7 @@ class EvidenceEntry(_Strict):
     metric: str = Field(description="What was measured")
     value: Number = Field(description="Measured value of the metric ('inf' when unbounded)")
     tolerance: float | None
-    outcome: Literal["pass", "fail", "unclear", "info", "skipped"]
+    outcome: Literal["pass", "fail", "unclear", "info", "skipped", "not_computed"]
     decisive: bool = Field(description="True for the evidence that decides the verdict")
     precision: str = Field(description="Arithmetic used (double, ball arithmetic, ...)")
     seconds: float
@@ -61,6 +61,51 @@ class PairEntry(_Strict):
     seconds: float
 
 
+class ModeCouplingEntry(_Strict):
+    inputs: float = Field(description="Coupling to the inputs in the stored state coordinates, "
+                          "relative to the model's size (0: decoupled, 1: largest possible)")
+    outputs: float = Field(description="Coupling to the outputs, same scale")
+    joint: float | None = Field(default=None, description="Input times output coupling in the "
+                                "coordinates the staircase analysed (after its state scaling); "
+                                "this decides 'nearly_hidden'")
+
+
+class HiddenModeEntry(_Strict):
+    """A hidden or nearly hidden mode of one model (for plots: mark and highlight it)."""
+
+    location: list[float] = Field(description="[re, im] (s-plane, or z-plane for discrete time)")
+    classification: Literal["hidden", "nearly_hidden"]
+    kind: Literal["uncontrollable", "unobservable", "uncontrollable_and_unobservable"] | None
+    stability: Literal["stable", "marginal", "unstable"]
+    unstable: bool = Field(description="True for unstable and marginally stable modes")
+    coupling: ModeCouplingEntry
+    method: Literal["eigenvector", "pbh"] = Field(description="How the coupling was measured")
+    eigenvalue_condition: float | str
+
+
+class ModeThresholds(_Strict):
+    hidden: float = Field(description="Staircase rank tolerance (relative) behind 'hidden'")
+    nearly_hidden: float = Field(description="Joint coupling at or below which a kept mode is "
+                                 "'nearly_hidden'")
+    marginal: float = Field(description="Relative width of the marginal band")
+
+
+class ProblemEntry(_Strict):
+    """A problem beyond the input-output verdict; the exit status follows the unaccepted ones."""
+
+    kind: Literal["unstable_hidden_mode", "marginal_hidden_mode"]
+    model: str = Field(description="Name of the model that has the problem")
+    model_index: int = Field(description="Index of that model in `models`")
+    location: list[float] = Field(description="[re, im] of the mode")
+    coupling: ModeCouplingEntry
+    classification: Literal["hidden", "nearly_hidden"]
+    decoupled_from: Literal["inputs", "outputs", "inputs_and_outputs"]
+    accepted: bool = Field(description="Accepted explicitly (command-line flag or manifest "
+                           "field); an accepted problem does not fail the gate")
+    reason: str | None = Field(description="The reason given with the acceptance")
+    message: str
+
+
 class ModelEntry(_Strict):
     name: str
     source: str
@@ -72,10 +117,29 @@ class ModelEntry(_Strict):
                                           "inputs, from the model document, when given")
     output_names: list[str] | None = Field(default=None, description="Names (units) of the "
                                            "outputs, from the model document, when given")
+    hidden_modes: list[HiddenModeEntry] | None = Field(default=None, description="Hidden and "
+                                                       "nearly hidden modes of the stored model")
+    mode_thresholds: ModeThresholds | None = Field(default=None, description="Thresholds "
+                                                   "behind the classification of hidden_modes")
+
+
+class ChannelTolerance(_Strict):
+    output: int = Field(description="0-based output index")
+    input: int = Field(description="0-based input index")
+    rtol: float = Field(description="Relative tolerance of this channel (relative to the reference peak gain)")
+    label: str = Field(description="The channel with its signal names, when the documents give them")
 
 
 class Tolerances(_Strict):
     rtol: float = Field(description="Relative tolerance on the peak gain of G1 - G2")
+    atol: float = Field(default=0.0, description="Absolute tolerance on the difference, in the models' "
+                        "gain units (output units per input unit); 0: none. A difference within the "
+                        "larger of rtol x reference peak gain and atol passes")
+    band_rad_s: list[float] | None = Field(default=None, description="Band of interest [low, high] in "
+                                           "rad/s: only the difference inside it decides")
+    channel_rtol: list[ChannelTolerance] = Field(default_factory=list, description="Per-channel relative "
+                                                 "tolerances; when given the decision is made channel by channel")
+    rule: str = Field(default="", description="The decision rule in words")
     rank_tol: float | None = Field(description="Staircase rank tolerance (null: scale-aware default)")
     escalation_seconds: float = Field(description="Time budget for extended precision per pair")
 
@@ -90,6 +154,9 @@ class CompareReport(_Strict):
     tolerances: Tolerances
     models: list[ModelEntry]
     comparisons: list[PairEntry]
+    problems: list[ProblemEntry] = Field(description="Problems beyond the input-output verdict "
+                                         "(a new unstable or marginal hidden or nearly hidden "
+                                         "mode); any unaccepted one makes the exit status 1")
     seconds: float
     caution: str
 
@@ -138,25 +205,81 @@ def signal_labels(doc: Any) -> dict[str, list[str] | None]:
 
 def compare_report(models: list[Any], sources: list[str], pairs: list[Any], options: Any,
                    verdict: str, seconds: float,
-                   signals: list[dict[str, list[str] | None]] | None = None) -> dict[str, Any]:
-    """Assemble and validate the compare report (a plain dict following CompareReport)."""
+                   signals: list[dict[str, list[str] | None]] | None = None, *,
+                   modes: list[Any] | None = None,
+                   accepted_reason: str | None = None) -> dict[str, Any]:
+    """Assemble and validate the compare report (a plain dict following CompareReport).
+
+    ``modes`` are the :class:`audit.internal_stability.ModelModes` of ``models`` (computed
+    here when not given); the top-level ``problems`` list follows from them
+    (:func:`audit.internal_stability.hidden_mode_problems`), every one accepted with
+    ``accepted_reason`` when that is given.
+    """
+    from .internal_stability import hidden_mode_problems, model_modes, modes_from_comparisons
+
+    if modes is None:
+        modes = [modes_from_comparisons(r, pairs)
+                 or model_modes(r, label=r.name, rank_tol=getattr(options, "rank_tol", None))
+                 for r in models]
+    problems = hidden_mode_problems(modes[0], list(modes[1:]), accepted_reason=accepted_reason)
     summary = _compare_summary(pairs, verdict)
+    open_problems = [p for p in problems if not p["accepted"]]
+    if open_problems:
+        summary += f" Problem: {open_problems[0]['message']}" + (
+            f" (and {len(open_problems) - 1} more problem(s))." if len(open_problems) > 1 else ".")
+    entries = [model_entry(r, s, sig) for r, s, sig in
+               zip(models, sources, signals or [None] * len(models))]
+    for entry, mm in zip(entries, modes):
+        entry["hidden_modes"] = [dict(m) for m in mm.modes]
+        entry["mode_thresholds"] = dict(mm.thresholds)
     data = {
         "report": "compare",
         "lti_audit_version": package_version(),
         "verdict": verdict,
         "summary": summary,
-        "tolerances": {"rtol": options.rtol, "rank_tol": options.rank_tol,
-                       "escalation_seconds": options.escalation_seconds},
-        "models": [model_entry(r, s, sig) for r, s, sig in
-                   zip(models, sources, signals or [None] * len(models))],
+        "tolerances": tolerances_entry(options, (signals or [None])[0]),
+        "models": entries,
         "comparisons": [p.as_dict() for p in pairs],
+        "problems": problems,
         "seconds": round(seconds, 6),
         "caution": CAUTION,
     }
     data = to_jsonable(data)
     CompareReport.model_validate(data)
     return data
+
+
+def tolerances_entry(options: Any, signals: dict[str, list[str] | None] | None = None) -> dict[str, Any]:
+    """The ``tolerances`` object of a report: every tolerance as stated, and the rule."""
+    from .tolerances import channel_label
+
+    outs = (signals or {}).get("outputs")
+    ins = (signals or {}).get("inputs")
+    band = getattr(options, "band", None)
+    channels = list(getattr(options, "channel_rtol", ()) or ())
+    atol = float(getattr(options, "atol", 0.0) or 0.0)
+    rule = ("pass when the peak of the difference" + (" inside the band" if band else "")
+            + (" in each channel" if channels else " (largest singular value)")
+            + " is within the larger of rtol x the larger peak gain of the two models"
+            + (" (the channel's own rtol where stated)" if channels else "") + f" and atol ({atol:g})")
+    return {"rtol": options.rtol, "rank_tol": options.rank_tol,
+            "escalation_seconds": options.escalation_seconds, "atol": atol,
+            "band_rad_s": None if band is None else [float(band[0]), float(band[1])],
+            "channel_rtol": [{"output": i, "input": j, "rtol": v, "label": channel_label(i, j, outs, ins)}
+                             for i, j, v in channels],
+            "rule": rule}
+
+
+def _tolerance_line(tol: dict[str, Any]) -> str:
+    parts = [f"rtol {tol['rtol']:.1e}"]
+    if tol.get("atol"):
+        parts.append(f"atol {tol['atol']:.3g}")
+    if tol.get("band_rad_s"):
+        lo, hi = tol["band_rad_s"]
+        parts.append(f"band {lo:.4g} to {hi:.4g} rad/s")
+    for ch in tol.get("channel_rtol") or []:
+        parts.append(f"rtol {ch['rtol']:.1e} for {ch['label']}")
+    return ", ".join(parts)
 
 
 def _compare_summary(pairs: list[Any], verdict: str) -> str:
@@ -245,8 +368,27 @@ def evidence_value_text(ev: dict[str, Any]) -> str:
     return _num(ev.get("value"))
 
 
+def compare_headline(data: dict[str, Any]) -> str:
+    """The first line of the compare output: the verdict, and the first unaccepted
+    problem when there is one (e.g. "EQUIVALENT input-output, but vendor.json has an
+    unstable hidden mode at 0.5 ...")."""
+    verdict = data["verdict"].upper()
+    problems = data.get("problems") or []
+    open_problems = [p for p in problems if not p["accepted"]]
+    if not open_problems:
+        accepted = len(problems)
+        return f"lti-audit compare: {verdict}" + (
+            f" input-output; {accepted} hidden-mode problem(s) accepted" if accepted else "")
+    head = f"lti-audit compare: {verdict} input-output, but {open_problems[0]['message']}"
+    if len(open_problems) > 1:
+        head += f" (and {len(open_problems) - 1} more problem(s))"
+    return head
+
+
 def render_compare_text(data: dict[str, Any]) -> str:
-    lines = [f"lti-audit compare: {data['verdict'].upper()}  (rtol {data['tolerances']['rtol']:.1e})"]
+    lines = [f"{compare_headline(data)}  ({_tolerance_line(data['tolerances'])})"]
+    if data["tolerances"].get("atol") or data["tolerances"].get("band_rad_s") or data["tolerances"].get("channel_rtol"):
+        lines.append(_wrap("tolerance rule: " + data["tolerances"]["rule"], "  "))
     for i, m in enumerate(data["models"]):
         role = "reference" if i == 0 else f"model {i}"
         dom = "continuous" if m["sample_period"] is None else f"discrete T={m['sample_period']:g}s"
@@ -275,6 +417,17 @@ def render_compare_text(data: dict[str, Any]) -> str:
             lines.append("   diagnosis:")
             for line in diag_lines:
                 lines.append(_wrap(line, "     "))
+    problems = data.get("problems") or []
+    if problems:
+        lines.append("")
+        lines.append("problems (internal stability):")
+        for p in problems:
+            state = f"ACCEPTED ({p['reason']})" if p["accepted"] else "NOT ACCEPTED"
+            lines.append(_wrap(f"!! {p['message']} -- {state}", "   "))
+        th = data["models"][0].get("mode_thresholds")
+        if th:
+            lines.append(f"   (hidden: removed by the staircase at rank tolerance {th['hidden']:.1e}; "
+                         f"nearly hidden: joint coupling <= {th['nearly_hidden']:.1e})")
     lines.append("")
     lines.append(_wrap(data["summary"], ""))
     lines.append(data["caution"])
@@ -354,12 +507,23 @@ def render_inspect_text(data: dict[str, Any]) -> str:
                  f"largest eigenvalue condition {c['largest_eigenvalue_condition']:.2e}")
     if p.get("claimed_form"):
         cf = p["claimed_form"]
-        lines.append(f"  claimed form: {cf['claimed']} -> " + ("holds" if cf.get("holds") else "does NOT hold"))
+        verdict = ("not checkable by pattern" if cf.get("checked") is False
+                   else "holds" if cf.get("holds") else "does NOT hold")
+        lines.append(f"  claimed form: {cf['claimed']} -> {verdict}")
     rec = p.get("recognised_forms")
     if rec and rec.get("forms"):
         lines.append("  recognised forms: " + ", ".join(str(f) for f in rec["forms"]))
-    for h in p["hidden_modes"]:
-        lines.append(f"  hidden mode {_pt(h['location'])} ({h['kind']}{', UNSTABLE' if h['unstable'] else ''})")
+    for h in p["hidden_modes"] + p.get("nearly_hidden_modes", []):
+        c = h.get("coupling", {})
+        label = "hidden mode" if h.get("classification", "hidden") == "hidden" else "nearly hidden mode"
+        levels = (f"; coupling: inputs {c['inputs']:.2g}, outputs {c['outputs']:.2g}, "
+                  f"joint {c['joint']:.2g}") if c else ""
+        lines.append(f"  {label} {_pt(h['location'])} ({h['kind']}"
+                     f"{', UNSTABLE' if h['unstable'] else ''}{levels})")
+    thr = p.get("mode_coupling_thresholds")
+    if thr and (p["hidden_modes"] or p.get("nearly_hidden_modes")):
+        lines.append(f"  (hidden: removed by the staircase at rank tolerance {thr['hidden']:.1e}; "
+                     f"nearly hidden: joint coupling <= {thr['nearly_hidden']:.1e})")
     for prob in data["problems"]:
         lines.append(_wrap("!! " + prob, "  "))
     for note in data["notes"]:

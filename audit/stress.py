@@ -40,11 +40,13 @@ to property-based testing", JOSS 4(43), 2019), applied to our own small specific
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
 import time
-from collections.abc import Callable, Iterable, Sequence
+import uuid
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -222,7 +224,7 @@ def _scipy_discretization(method: str) -> Converter:
         _continuous(r, "cont2discrete")
         h = _period(r)
         ad, bd, cd, dd, _ = sig.cont2discrete((r.a, r.b, r.c, r.d), h, method=method)
-        ours = discretize(r, h, method="zoh" if method == "zoh" else "tustin")
+        ours = discretize(r, h, method="zero-order-hold" if method == "zoh" else "bilinear")
         return ours, _result(ad, bd, cd, dd, h)
 
     return run
@@ -274,7 +276,8 @@ def _control_sample(method: str) -> Converter:
         _continuous(r, "control.sample_system")
         h = _period(r)
         new = control.sample_system(_control_sys(r), h, method=method)
-        return discretize(r, h, method=method), _from_control(new, h)
+        ours = discretize(r, h, method="zero-order-hold" if method == "zoh" else "bilinear")
+        return ours, _from_control(new, h)
 
     return run
 
@@ -326,9 +329,9 @@ def _build_pipelines() -> dict[str, Pipeline]:
                  _scipy_tf),
         Pipeline("scipy: zeros-poles-gain round trip", "scipy", "scipy.signal.ss2zpk then zpk2ss (SISO)", _scipy_zeros_poles_gain_round_trip),
         Pipeline("scipy: zero-order-hold sampling", "scipy",
-                 "scipy.signal.cont2discrete(zoh) against lti-audit discretize(zoh)", _scipy_discretization("zoh")),
+                 "scipy.signal.cont2discrete(zoh) against lti-audit discretize(zero-order-hold)", _scipy_discretization("zoh")),
         Pipeline("scipy: bilinear sampling", "scipy",
-                 "scipy.signal.cont2discrete(bilinear) against lti-audit discretize(tustin)",
+                 "scipy.signal.cont2discrete(bilinear) against lti-audit discretize(bilinear)",
                  _scipy_discretization("bilinear")),
         Pipeline("python-control: transfer-function round trip", "python-control", "control.ss2tf then control.tf2ss",
                  _control_tf),
@@ -340,9 +343,9 @@ def _build_pipelines() -> dict[str, Pipeline]:
                  _python_control_form("modal")),
         Pipeline("python-control: minimal realization", "python-control", "control.minreal", _python_control_reduction),
         Pipeline("python-control: zero-order-hold sampling", "python-control",
-                 "control.sample_system(zoh) against lti-audit discretize(zoh)", _control_sample("zoh")),
-        Pipeline("python-control: Tustin sampling", "python-control",
-                 "control.sample_system(tustin) against lti-audit discretize(tustin)",
+                 "control.sample_system(zoh) against lti-audit discretize(zero-order-hold)", _control_sample("zoh")),
+        Pipeline("python-control: bilinear sampling", "python-control",
+                 "control.sample_system(tustin) against lti-audit discretize(bilinear)",
                  _control_sample("tustin")),
         Pipeline("verdict: equivalent by construction", "verdict",
                  "equivalent_pair (cond(T) = 100) must be judged equivalent", _verdict_equivalent),
@@ -723,6 +726,8 @@ class CampaignResult:
     versions: dict[str, str] = field(default_factory=dict)
 
     def as_dict(self) -> dict[str, Any]:
+        from .report import CAUTION
+
         audits = sum(v["audited"] for v in self.summary.values())
         return {
             "lti_audit_stress": 1,
@@ -739,6 +744,7 @@ class CampaignResult:
             "pipelines": self.summary,
             "counterexamples": self.counterexamples,
             "cases": self.records,
+            "caution": CAUTION,
         }
 
 
@@ -755,13 +761,30 @@ def library_versions() -> dict[str, str]:
     return out
 
 
-def _pool(workers: int) -> Any:
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
+@contextlib.contextmanager
+def _dask_client(workers: int, scheduler: str | None) -> Iterator[Any]:
+    """A Dask client: to ``scheduler``, or to a local cluster of ``workers`` processes."""
+    from distributed import Client, LocalCluster
 
-    methods = multiprocessing.get_all_start_methods()
-    ctx = multiprocessing.get_context("fork" if "fork" in methods else "spawn")
-    return ProcessPoolExecutor(max_workers=workers, mp_context=ctx)
+    if scheduler:
+        client = Client(scheduler, timeout=30, set_as_default=False)
+        try:
+            yield client
+        finally:
+            client.close()
+        return
+    with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                      host="127.0.0.1", dashboard_address="127.0.0.1:0",
+                      worker_dashboard_address="127.0.0.1:0") as cluster, \
+            Client(cluster, set_as_default=False) as client:
+        yield client
+
+
+def _cluster_workers(client: Any, fallback: int) -> int:
+    try:
+        return max(1, len(client.scheduler_info()["workers"]))
+    except Exception:  # noqa: BLE001 - only sizes the submission window
+        return fallback
 
 
 def run_campaign(
@@ -773,6 +796,7 @@ def run_campaign(
     shard: tuple[int, int] = (0, 1),
     settings: CampaignSettings | None = None,
     progress: Callable[[int, int | None, int], None] | None = None,
+    scheduler: str | None = None,
 ) -> CampaignResult:
     """Run a stress campaign (numerics only; nothing is printed or written).
 
@@ -786,12 +810,19 @@ def run_campaign(
     seed : int, keyword-only
         Campaign seed (overrides ``settings.seed``).
     workers : int, keyword-only
-        Parallel worker processes (1: run in this process).
+        Worker processes of a local Dask cluster (1: run in this process, no cluster).
+    scheduler : str or None, keyword-only
+        Address of an existing Dask scheduler (``tcp://HOST:PORT``): the cases are
+        submitted to it as tasks and ``workers`` is ignored. Results are collected as
+        they complete and sorted by case index, so the report is the same whatever the
+        number of workers (only timings differ). A case whose worker dies is re-run by
+        Dask on another worker. Pipelines added with :func:`register_pipeline` exist only
+        in this process: run them with ``workers=1``.
     shard : (int, int), keyword-only
         ``(i, N)``: run the case indices ``k`` with ``k % N == i``.
     settings : CampaignSettings, keyword-only
     progress : callable ``(done, planned or None, failures)``, keyword-only
-        Called after each completed chunk of cases.
+        Called once at the start (``done = 0``) and after each completed case.
 
     Returns
     -------
@@ -842,7 +873,9 @@ def run_campaign(
         return sum(1 for r in recs for x in r["results"] if x["outcome"] in FAILING)
 
     gen = iter(indices())
-    if workers == 1:
+    if progress:
+        progress(0, planned, 0)
+    if workers == 1 and not scheduler:
         for k in gen:
             if deadline is not None and time.perf_counter() >= deadline:
                 stopped = True
@@ -852,43 +885,57 @@ def run_campaign(
             failures += count_failures([rec])
             if progress:
                 progress(len(records), planned, failures)
+        counterexamples = None
     else:
-        from concurrent.futures import FIRST_COMPLETED, wait
+        from distributed import as_completed
 
-        with _pool(workers) as pool:
-            pending: set[Any] = set()
+        with _dask_client(workers, scheduler) as client:
+            workers = _cluster_workers(client, workers)
+            window = 2 * workers  # cases in flight: enough to keep every worker busy
+            ac = as_completed(loop=client.loop)
             exhausted = False
-            while True:
-                while not exhausted and len(pending) < 2 * workers:
+
+            def submit_more() -> None:
+                nonlocal exhausted, stopped
+                while not exhausted and ac.count() < window:
                     if deadline is not None and time.perf_counter() >= deadline:
                         stopped, exhausted = True, True
-                        break
+                        return
                     batch = [k for _, k in zip(range(chunk), gen)]
                     if not batch:
                         exhausted = True
-                        break
-                    pending.add(pool.submit(_cases_task, (batch, settings)))
-                if not pending:
-                    break
-                done, pending = wait(pending, return_when=FIRST_COMPLETED)
-                for fut in done:
-                    recs = fut.result()
-                    records.extend(recs)
-                    failures += count_failures(recs)
-                    if progress:
-                        progress(len(records), planned, failures)
+                        return
+                    ac.add(client.submit(_cases_task, (batch, settings), pure=False,
+                                         key=f"lti-audit-stress-{settings.seed}-{batch[0]}-"
+                                             f"{uuid.uuid4().hex[:8]}"))
+
+            submit_more()
+            for fut in ac:
+                recs = fut.result()
+                fut.release()
+                records.extend(recs)
+                failures += count_failures(recs)
+                if progress:
+                    progress(len(records), planned, failures)
+                submit_more()
+            records.sort(key=lambda r: r["index"])
+            summary = summarize(records, names)
+            counterexamples = shrink_counterexamples(records, summary, settings,
+                                                     client=client)
     records.sort(key=lambda r: r["index"])
     summary = summarize(records, names)
-    counterexamples = shrink_counterexamples(records, summary, settings, workers=workers)
+    if counterexamples is None:
+        counterexamples = shrink_counterexamples(records, summary, settings)
     return CampaignResult(settings, records, summary, counterexamples, planned, stopped,
                           (i, n), workers, time.perf_counter() - start, library_versions())
 
 
 def shrink_counterexamples(records: Sequence[dict[str, Any]], summary: dict[str, Any],
-                           settings: CampaignSettings, *, workers: int = 1) -> list[dict[str, Any]]:
+                           settings: CampaignSettings, *, client: Any = None) -> list[dict[str, Any]]:
     """Shrink the first ``settings.max_counterexamples`` failing cases of each pipeline.
 
-    Duplicates (the same shrunk spec for the same pipeline) are dropped.
+    With a Dask ``client`` the shrinking tasks run on its cluster (results in task
+    order). Duplicates (the same shrunk spec for the same pipeline) are dropped.
 
     Raises
     ------
@@ -900,9 +947,9 @@ def shrink_counterexamples(records: Sequence[dict[str, Any]], summary: dict[str,
         for index in info["failing_cases"][: settings.max_counterexamples]:
             res = next(x for x in by_index[index]["results"] if x["pipeline"] == name)
             tasks.append((name, by_index[index]["spec"], res["outcome"], index, settings))
-    if workers > 1 and len(tasks) > 1:
-        with _pool(workers) as pool:
-            shrunk = list(pool.map(_shrink_task, tasks))
+    if client is not None and len(tasks) > 1:
+        futures = [client.submit(_shrink_task, t, pure=False) for t in tasks]
+        shrunk = client.gather(futures)
     else:
         shrunk = [_shrink_task(t) for t in tasks]
     seen: set[str] = set()
@@ -914,6 +961,59 @@ def shrink_counterexamples(records: Sequence[dict[str, Any]], summary: dict[str,
         seen.add(key)
         out.append(item)
     return out
+
+
+MACHINE_DEPENDENT_KEYS = ("seconds", "systems_per_second", "workers")
+"""Report entries that depend on the machine and the cluster, not on the seed."""
+
+
+def reproducible_part(report: dict[str, Any]) -> dict[str, Any]:
+    """A campaign report without timings and worker count: equal for equal seeds and
+    settings, whatever the number of workers or machines (the property the cluster
+    tests check)."""
+    keep = {k: v for k, v in report.items() if k not in MACHINE_DEPENDENT_KEYS}
+    keep["cases"] = [
+        {**{k: v for k, v in c.items() if k != "seconds"},
+         "results": [{k: v for k, v in r.items() if k != "seconds"} for r in c["results"]]}
+        for c in report["cases"]]
+    return keep
+
+
+_REPORT_FIELDS: dict[str, tuple[type, ...]] = {
+    "settings": (dict,), "shard": (list,), "planned_cases": (int, type(None)),
+    "stopped_by_time_limit": (bool,), "seconds": (int, float), "counterexamples": (list,),
+    "cases": (list,),
+}
+
+
+def read_campaign_report(path: Path) -> dict[str, Any]:
+    """Read a shard's ``campaign.json`` for merging, checking its shape first.
+
+    Raises
+    ------
+    InvalidModelError
+        Not a regular file, too large, not JSON, or not a campaign report (the message
+        names the file and the first field that does not fit).
+    """
+    from .loading import _parse_json, read_input_bytes
+
+    source = str(path)
+    data = _parse_json(read_input_bytes(path, source=source, what="a campaign report")
+                       .decode("utf-8", errors="replace"), source)
+    if not isinstance(data, dict):
+        raise InvalidModelError(f"expected a campaign report (a JSON object written by "
+                                f"'lti-audit stress'), got {type(data).__name__}", source=source)
+    for key, types in _REPORT_FIELDS.items():
+        if not isinstance(data.get(key), types) or isinstance(data.get(key), bool) and bool not in types:
+            raise InvalidModelError(f"{key}: missing or of the wrong type in this campaign report",
+                                    field=key, source=source)
+    for k, case in enumerate(data["cases"]):
+        if not (isinstance(case, dict) and isinstance(case.get("index"), int)
+                and isinstance(case.get("results"), list)
+                and all(isinstance(r, dict) for r in case["results"])):
+            raise InvalidModelError(f"cases[{k}]: expected an object with an integer 'index' and a "
+                                    "list of 'results'", field=f"cases[{k}]", source=source)
+    return data
 
 
 def merge_campaigns(reports: Sequence[dict[str, Any]]) -> dict[str, Any]:
@@ -932,6 +1032,11 @@ def merge_campaigns(reports: Sequence[dict[str, Any]]) -> dict[str, Any]:
             raise InvalidModelError("reports: the shards were run with different settings "
                                     f"({rep['settings']} vs {first})", field="settings")
     records = sorted((c for rep in reports for c in rep["cases"]), key=lambda c: c["index"])
+    try:
+        summary = summarize(records, first["pipelines"])
+    except (KeyError, TypeError, ValueError, AttributeError) as exc:
+        raise InvalidModelError(f"cases: a result does not have the fields a campaign report "
+                                f"holds ({type(exc).__name__}: {exc})", field="cases") from None
     merged = dict(reports[0])
     merged.update({
         "shard": [0, 1],
@@ -941,7 +1046,7 @@ def merge_campaigns(reports: Sequence[dict[str, Any]]) -> dict[str, Any]:
         "completed_cases": len(records),
         "stopped_by_time_limit": any(r["stopped_by_time_limit"] for r in reports),
         "seconds": max(r["seconds"] for r in reports),
-        "pipelines": summarize(records, first["pipelines"]),
+        "pipelines": summary,
         "counterexamples": [c for rep in reports for c in rep["counterexamples"]],
         "cases": records,
     })
@@ -1053,7 +1158,10 @@ def render_markdown(report: dict[str, Any]) -> str:
                          f" ({cx['verdict'] or cx['message'][:80]}); order {sp['order']}, "
                          f"{sp['inputs']} in / {sp['outputs']} out, spread {sp['spread_decades']:g} dec, "
                          f"cond {sp['coordinate_condition']:g}, case {cx['case']}")
-    lines += ["", "Versions: " + ", ".join(f"{k} {v}" for k, v in report["versions"].items()), ""]
+    from .report import CAUTION
+
+    lines += ["", "Versions: " + ", ".join(f"{k} {v}" for k, v in report["versions"].items()),
+              "", CAUTION, ""]
     return "\n".join(lines)
 
 
@@ -1154,6 +1262,7 @@ __all__ = [
     "plot_envelope",
     "register_pipeline",
     "render_markdown",
+    "reproducible_part",
     "run_campaign",
     "run_case",
     "run_pipeline",

@@ -18,6 +18,23 @@ Methods implemented
   staircase (or, for the sum, a principal-angle SVD), and an orthonormal basis adapted
   to the chain ``V_c ∩ V_uo ⊂ V_c ⊂ V_c + V_uo ⊂ R^n`` is used (R. E. Kalman,
   "Mathematical description of linear dynamical systems", SIAM J. Control 1 (1963)).
+* **Mode coupling** (:func:`mode_couplings`): for every eigenvalue of A, its coupling to
+  the inputs and to the outputs, relative to the model's size -- eigenvector couplings
+  ``||w^H B|| / ||B||`` and ``||C v|| / ||C||`` (unit eigenvectors) for simple,
+  well-conditioned eigenvalues, otherwise the quantitative PBH test (V. M. Popov,
+  V. Belevitch, M. L. J. Hautus): the smallest singular values of ``[A - lambda I, B]`` and
+  ``[A - lambda I; C]`` relative to ``||[A, B]||`` / ``||[A; C]||``, which is R. Eising's
+  distance to uncontrollability ("Between controllable and uncontrollable", Systems &
+  Control Letters 4 (1984)) restricted to that eigenvalue. A mode is *hidden* when the
+  staircase removes it, *nearly hidden* when it is kept but its joint coupling (input
+  times output coupling) is at most ``NEARLY_HIDDEN_LEVEL``, *coupled* otherwise.
+* **State scaling that rounding cannot steer**: besides the plain power-of-2 balancing
+  of :func:`state_scaling`, a second one that ignores entries below the rank tolerance;
+  when the two differ or a decision is unclear, the number of modes whose joint coupling
+  (which a diagonal scaling moves only through the normalisation) is at rounding level
+  decides which scaling -- and, failing both, which slightly looser tolerance (at most
+  100 times, below ``DOUBT_CEILING``; the decisions are then reported unclear) -- is
+  used; see ``_prepare``.
 * **Invariant / transmission zeros**: the reduced regular pencil of
   A. Emami-Naeini and P. Van Dooren, "Computation of zeros of linear multivariable
   systems", Automatica 18 (1982) 415-430, via slycot ``ab08nd`` (SLICOT AB08ND), then
@@ -577,7 +594,7 @@ def _leading(r: Realization, k: int) -> Realization:
 _SCALING_SWEEPS = 100
 
 
-def state_scaling(r: Realization) -> FloatArray:
+def state_scaling(r: Realization, *, floor: float = 0.0) -> FloatArray:
     """Diagonal state scaling (powers of 2) that balances the system matrix.
 
     Our own variant of the Parlett-Reinsch balancing iteration (B. N. Parlett and
@@ -591,10 +608,21 @@ def state_scaling(r: Realization) -> FloatArray:
     Returns ``d`` such that the scaled realization is ``(D^-1 A D, D^-1 B, C D, D)``
     with ``D = diag(d)``. Powers of 2 make the scaling exact in floating point.
 
+    Entries at or below ``floor`` times the Frobenius norm of their own matrix
+    (``|a_ij| <= floor ||A||``, ``|b_ij| <= floor ||B||``, ``|c_ij| <= floor ||C||``)
+    do not steer the scaling: they are treated as zero while the scaling is computed.
+    The staircase passes its rank tolerance here, so the scaling cannot amplify an
+    entry that the staircase would judge to be zero -- a rounding-level ``3e-17`` in C,
+    the only link of an unobservable state to the output, would otherwise be blown up
+    by about ``7e7`` until it looks like a real coupling (issue 11). Genuine badly
+    scaled coordinates (entries above the floor) are balanced as before.
+
     Parameters
     ----------
     r : Realization
         ``A : (n, n)``, ``B : (n, m)``, ``C : (p, n)``.
+    floor : float, keyword-only
+        Relative size at or below which an entry is ignored (default 0: none ignored).
 
     Returns
     -------
@@ -608,12 +636,18 @@ def state_scaling(r: Realization) -> FloatArray:
     r = _check_realization(r)
     n = r.order
     a = np.array(r.a, dtype=float, copy=True)
-    nb = float(np.linalg.norm(r.b))
-    nc = float(np.linalg.norm(r.c))
+    b_raw = np.array(r.b, dtype=float, copy=True)
+    c_raw = np.array(r.c, dtype=float, copy=True)
+    nb = float(np.linalg.norm(b_raw))
+    nc = float(np.linalg.norm(c_raw))
     na = float(np.linalg.norm(a))
+    if floor > 0.0:
+        a[np.abs(a) <= floor * na] = 0.0
+        b_raw[np.abs(b_raw) <= floor * nb] = 0.0
+        c_raw[np.abs(c_raw) <= floor * nc] = 0.0
     ref = na if na > 0.0 else max(nb, nc, 1.0)
-    b = np.array(r.b, dtype=float) * (ref / nb) if nb > 0.0 else np.array(r.b, dtype=float)
-    c = np.array(r.c, dtype=float) * (ref / nc) if nc > 0.0 else np.array(r.c, dtype=float)
+    b = b_raw * (ref / nb) if nb > 0.0 else b_raw
+    c = c_raw * (ref / nc) if nc > 0.0 else c_raw
     d = np.ones(n)
     for _ in range(_SCALING_SWEEPS):
         changed = False
@@ -645,11 +679,65 @@ def _scaled(r: Realization, d: FloatArray) -> Realization:
     return r.with_matrices(a, np.asarray(r.b) / d[:, None], np.asarray(r.c) * d[None, :])
 
 
-def _prepare(r: Realization, balance: bool) -> tuple[Realization, FloatArray, bool]:
-    """(realization to work on, scaling d, whether d differs from all ones)."""
-    d = state_scaling(r) if balance else np.ones(r.order)
+#: looser rank tolerances (factors of the given one, kept below ``DOUBT_CEILING``) tried
+#: when the staircase and the joint mode couplings disagree about how many modes are
+#: hidden (see :func:`_prepare`).
+LOOSER_TOLERANCE_FACTORS = (10.0, 100.0)
+
+
+def _prepare(r: Realization, balance: bool,
+             rtol: float) -> tuple[Realization, FloatArray, bool, float]:
+    """(realization to work on, scaling d, whether d differs from all ones, tolerance).
+
+    Two candidate scalings: the plain balancing ``d_all`` of :func:`state_scaling` and
+    the one that ignores entries below the rank tolerance ``d_floor``; they differ only
+    when some entry lies at rounding level. When they differ, or when the staircase after
+    ``d_all`` makes an unclear decision, the number of modes whose *joint coupling* (the
+    product of input and output coupling, measured after ``d_all``; a diagonal state
+    scaling moves one factor up and the other down) is at most ``rtol`` is the arbiter:
+    the first of (d_all, rtol), (d_floor, rtol), then both with the looser tolerances
+    ``LOOSER_TOLERANCE_FACTORS * rtol``, whose staircase removes exactly that many modes
+    is used. A tiny entry that is the only link of a mode (issue 11: ``C = [..., 3e-17]``)
+    leaves the mode's joint coupling at rounding level; a state rescaled by a unit change
+    of 1e9 keeps a joint coupling of order one. When none agrees, ``(d_all, rtol)`` is
+    kept unless ``d_floor`` comes closer. A tolerance other than ``rtol`` makes the
+    caller's decisions unclear.
+    """
+    if not balance or r.order == 0:
+        return r, np.ones(r.order), False, rtol
+    d_all = state_scaling(r)
+    d_floor = state_scaling(r, floor=rtol)
+    floors_differ = bool(np.any(d_all != d_floor))  # exact: powers of 2 set by us
+    removed: dict[tuple[int, float], int] = {}
+
+    def removed_by(which: int, t: float) -> int:
+        if (which, t) not in removed:
+            d = d_all if which == 0 else d_floor
+            removed[(which, t)] = r.order - _minimal_parts(_scaled(r, d), t)[0].order
+        return removed[(which, t)]
+
+    choice: tuple[int, float] = (0, rtol)
+    if floors_differ or not _clear_at(r, d_all, rtol):
+        sides = _mode_sides(_scaled(r, d_all))
+        weak = int(np.count_nonzero(sides.inputs * sides.outputs <= rtol))
+        whiches = (0, 1) if floors_differ else (0,)
+        tries = [(w, rtol) for w in whiches] + [
+            (w, f * rtol) for f in LOOSER_TOLERANCE_FACTORS if f * rtol < DOUBT_CEILING
+            for w in whiches]
+        for w, t in tries:
+            if removed_by(w, t) == weak:
+                choice = (w, t)
+                break
+        else:
+            if floors_differ and abs(removed_by(1, rtol) - weak) < abs(removed_by(0, rtol) - weak):
+                choice = (1, rtol)
+    d = d_all if choice[0] == 0 else d_floor
     nontrivial = bool(np.any(d != 1.0))  # exact: d holds powers of 2 set by us
-    return (_scaled(r, d) if nontrivial else r), d, nontrivial
+    return (_scaled(r, d) if nontrivial else r), d, nontrivial, choice[1]
+
+
+def _clear_at(r: Realization, d: FloatArray, rtol: float) -> bool:
+    return all(dec.clear for dec in _minimal_parts(_scaled(r, d), rtol)[3])
 
 
 # ------------------------------------------------------------ minimal realization
@@ -821,9 +909,9 @@ def _minimal_realization(
     """Implementation of :func:`minimal_realization`."""
     r = _check_realization(r)
     rtol = _relative_tolerance(tol, r.order)
-    work, d, scaled = _prepare(r, balance)
-    minimal, unc, uno, decisions, discarded = _minimal_parts(work, rtol)
-    unscaled_order = _minimal_parts(r, rtol)[0].order if scaled else minimal.order
+    work, d, scaled, used_tol = _prepare(r, balance, rtol)
+    minimal, unc, uno, decisions, discarded = _minimal_parts(work, used_tol)
+    unscaled_order = _minimal_parts(r, rtol)[0].order if scaled or used_tol != rtol else minimal.order
     if minimal.order == r.order:
         # nothing to remove: keep the user's coordinates exactly (any transformation,
         # even an orthogonal one, perturbs near-defective poles by ~sqrt(eps))
@@ -837,8 +925,9 @@ def _minimal_realization(
         decisions=decisions,
         decisions_clear=bool(
             all(dec.clear for dec in decisions) and unscaled_order == minimal.order
+            and used_tol == rtol
         ),
-        tolerance=rtol,
+        tolerance=used_tol,
         discarded_norm=discarded,
         state_scaling=d,
         unscaled_order=unscaled_order,
@@ -1060,9 +1149,10 @@ def kalman_decomposition(
     """
     r = _check_realization(r)
     rtol = _relative_tolerance(tol, r.order)
-    work, d, scaled = _prepare(r, balance)
-    parts = _kalman_parts(work, rtol)
-    unscaled_sizes = _kalman_parts(r, rtol)["block_sizes"] if scaled else parts["block_sizes"]
+    work, d, scaled, used_tol = _prepare(r, balance, rtol)
+    parts = _kalman_parts(work, used_tol)
+    unscaled_sizes = (_kalman_parts(r, rtol)["block_sizes"] if scaled or used_tol != rtol
+                      else parts["block_sizes"])
     return KalmanDecomposition(
         realization=parts["realization"],
         transformation=parts["transformation"],
@@ -1070,10 +1160,11 @@ def kalman_decomposition(
         block_sizes=parts["block_sizes"],
         eigenvalues=parts["eigenvalues"],
         decisions=parts["decisions"],
-        decisions_clear=bool(parts["clear"] and unscaled_sizes == parts["block_sizes"]),
+        decisions_clear=bool(parts["clear"] and unscaled_sizes == parts["block_sizes"]
+                             and used_tol == rtol),
         subspace_residual=parts["residual"],
         unscaled_block_sizes=unscaled_sizes,
-        tolerance=rtol,
+        tolerance=used_tol,
         discarded_norm=parts["discarded"],
     )
 
@@ -1253,6 +1344,361 @@ def hidden_modes(
     )
 
 
+# ------------------------------------------------------------------- mode coupling
+#: joint coupling (input coupling times output coupling) at or below which a mode the
+#: staircase kept is reported as *nearly hidden*. A mode coupled at 1e-6 of ||C|| on one
+#: side and of order one on the other has a joint coupling of a few 1e-7 (common
+#: practice for "weak" is 1e-3 per side; our choice, no source).
+NEARLY_HIDDEN_LEVEL = 1e-5
+#: eigenvalue condition number above which eigenvector couplings are not trusted and
+#: the PBH singular values are used instead (1/sqrt(eps) would be the classic limit;
+#: we switch earlier).
+EIGENVECTOR_CONDITION_LIMIT = 1e8
+#: eigenvalues closer than this (relative to ||A||_2) form one cluster, measured by PBH.
+CLUSTER_RTOL = 1e-6
+#: budget of the PBH fallback, in units of n^3 flops: at most max(2, PBH_BUDGET / n^3)
+#: clusters or ill-conditioned eigenvalues get an SVD (12 at n = 200, 2 at n = 2000);
+#: the others keep their eigenvector couplings (and their condition number says how far
+#: to trust them).
+PBH_BUDGET = 1e8
+
+CouplingMethod = Literal["eigenvector", "pbh"]
+Classification = Literal["hidden", "nearly_hidden", "coupled"]
+
+
+@dataclass(frozen=True)
+class _Sides:
+    values: ComplexArray
+    inputs: FloatArray
+    outputs: FloatArray
+    methods: tuple[CouplingMethod, ...]
+    conditions: FloatArray
+    clusters: tuple[tuple[int, ...], ...]
+
+
+def _pbh_levels(a: FloatArray, g_hat: FloatArray, size: float, lam: complex, k: int, *,
+                rows: bool) -> FloatArray:
+    """The ``k`` smallest singular values of ``[A - lam I, G^]`` (``rows=False``) or of
+    ``[A - lam I; G^]`` (``rows=True``), divided by ``size`` (the 2-norm of ``[A, G^]`` /
+    ``[A; G^]``).
+
+    ``G^`` is ``B`` (or ``C``) scaled to the spectral norm of A (so that the units of the
+    inputs or outputs do not matter; see :func:`_pbh_operands`). This is the PBH test
+    (V. M. Popov, V. Belevitch, M. L. J. Hautus) made quantitative: the smallest value is
+    the distance, relative to the model's size, to a pair in which ``lam`` is exactly
+    uncontrollable (unobservable) -- Eising's distance to uncontrollability
+    (R. Eising, "Between controllable and uncontrollable", Systems & Control Letters 4
+    (1984) 263-264) restricted to ``lam``.
+    """
+    n = a.shape[0]
+    if g_hat.size == 0 or size == 0.0:
+        return np.zeros(k)
+    shifted = a - lam * np.eye(n)
+    m = np.vstack([shifted, g_hat]) if rows else np.hstack([shifted, g_hat])
+    sv = np.linalg.svd(m, compute_uv=False)  # n values, descending
+    return np.sort(sv[:n])[:k] / size
+
+
+def _pbh_operands(a: FloatArray, g: FloatArray, *, rows: bool) -> tuple[FloatArray, float]:
+    """(``G`` scaled to ``||A||_2``, the 2-norm of ``[A, G^]`` or ``[A; G^]``)."""
+    ng = float(np.linalg.norm(g, 2)) if g.size else 0.0
+    if ng == 0.0:
+        return np.zeros_like(g), 0.0
+    na = float(np.linalg.norm(a, 2))
+    g_hat = g * ((na if na > 0.0 else 1.0) / ng)
+    both = np.vstack([a, g_hat]) if rows else np.hstack([a, g_hat])
+    return g_hat, float(np.linalg.norm(both, 2))
+
+
+def _mode_sides(r: Realization) -> _Sides:
+    """Input and output coupling of every eigenvalue of A, in the given coordinates.
+
+    A simple, well-conditioned eigenvalue with unit right / left eigenvectors ``v``,
+    ``w``: inputs ``= ||w^H B||_2 / ||B||_2``, outputs ``= ||C v||_2 / ||C||_2`` (both in
+    [0, 1]; their product times ``||B|| ||C|| / |w^H v|`` is the norm of the mode's
+    residue ``C v w^H B / (w^H v)``, which no change of state coordinates alters).
+    Clustered eigenvalues (within ``CLUSTER_RTOL ||A||``) and eigenvalues with a
+    condition number above ``EIGENVECTOR_CONDITION_LIMIT`` use the PBH levels instead
+    (:func:`_pbh_levels`), the ``k`` smallest singular values going to the ``k``
+    members of a cluster.
+    """
+    a, b, c = (np.asarray(x, dtype=float) for x in (r.a, r.b, r.c))
+    n = a.shape[0]
+    if n == 0:
+        z = np.zeros(0)
+        return _Sides(np.zeros(0, dtype=complex), z, z, (), z, ())
+    try:
+        vals, vl, vr = scipy.linalg.eig(a, left=True, right=True)
+    except (np.linalg.LinAlgError, ValueError) as exc:  # pragma: no cover - LAPACK failure
+        raise NumericalTroubleError(f"eigenvalue computation failed: {exc}") from exc
+    vals = np.asarray(vals, dtype=complex)
+    vr = vr / np.maximum(np.linalg.norm(vr, axis=0), 1e-300)
+    vl = vl / np.maximum(np.linalg.norm(vl, axis=0), 1e-300)
+    denom = np.abs(np.sum(np.conj(vl) * vr, axis=0))
+    conditions = np.where(denom > 0.0, 1.0 / np.maximum(denom, 1e-300), np.inf)
+    nb = float(np.linalg.norm(b, 2)) if b.size else 0.0
+    nc = float(np.linalg.norm(c, 2)) if c.size else 0.0
+    inputs = np.zeros(n)
+    outputs = np.zeros(n)
+    if nb > 0.0:
+        inputs = np.linalg.norm(np.conj(vl).T @ b, axis=1) / nb
+    if nc > 0.0:
+        outputs = np.linalg.norm(c @ vr, axis=0) / nc
+    methods: list[CouplingMethod] = ["eigenvector"] * n
+    na = max(float(np.linalg.norm(a, 2)), 1e-300)
+    assigned = np.zeros(n, dtype=bool)
+    clusters: list[tuple[int, ...]] = []
+    budget = max(2, int(PBH_BUDGET / float(n) ** 3))
+    pbh: tuple[tuple[FloatArray, float], tuple[FloatArray, float]] | None = None
+    for i in range(n):
+        if assigned[i]:
+            continue
+        members = tuple(int(j) for j in np.flatnonzero(
+            (np.abs(vals - vals[i]) <= CLUSTER_RTOL * na) & ~assigned))
+        assigned[list(members)] = True
+        clusters.append(members)
+        if (len(members) == 1 and conditions[i] <= EIGENVECTOR_CONDITION_LIMIT) or budget <= 0:
+            continue
+        budget -= 1
+        if pbh is None:
+            pbh = (_pbh_operands(a, b, rows=False), _pbh_operands(a, c, rows=True))
+        centre = complex(np.mean(vals[list(members)]))
+        k = len(members)
+        ins = _pbh_levels(a, pbh[0][0], pbh[0][1], centre, k, rows=False)
+        outs = _pbh_levels(a, pbh[1][0], pbh[1][1], centre, k, rows=True)
+        for t, j in enumerate(members):
+            inputs[j], outputs[j], methods[j] = float(ins[t]), float(outs[t]), "pbh"
+    return _Sides(vals, np.minimum(inputs, 1.0), np.minimum(outputs, 1.0), tuple(methods),
+                  conditions, tuple(clusters))
+
+
+@dataclass(frozen=True)
+class ModeCoupling:
+    """How strongly one mode (an eigenvalue of A) is coupled to the inputs and outputs.
+
+    Attributes
+    ----------
+    value : complex
+        The eigenvalue (s-plane, or z-plane for discrete time).
+    classification : {"hidden", "nearly_hidden", "coupled"}
+        "hidden": removed by the staircase (it does not count in the minimal order);
+        "nearly_hidden": kept, but ``joint <= NEARLY_HIDDEN_LEVEL``; "coupled" otherwise.
+    kind : {"uncontrollable", "unobservable", "uncontrollable_and_unobservable"} or None
+        The side(s) through which it is hidden or weakly coupled (None when coupled).
+    stability : {"stable", "marginal", "unstable"}
+    inputs, outputs : float
+        Coupling to the inputs / outputs in the state coordinates as stored, relative
+        to the model's size (see :func:`_mode_sides`; 0 = exactly decoupled, 1 = the
+        largest possible).
+    joint : float
+        Product of input and output coupling in the analysis coordinates (after the
+        state scaling the staircase used): a diagonal change of state coordinates
+        moves one factor up and the other down, so the product is what decides.
+    method : {"eigenvector", "pbh"}
+    eigenvalue_condition : float
+        ``1 / |w^H v|`` for unit eigenvectors (``inf`` for a defective eigenvalue).
+    """
+
+    value: complex
+    classification: Classification
+    kind: HiddenKind | None
+    stability: Stability
+    inputs: float
+    outputs: float
+    joint: float
+    method: CouplingMethod
+    eigenvalue_condition: float
+
+    @property
+    def is_unstable(self) -> bool:
+        """True for unstable *and* marginal modes."""
+        return self.stability != "stable"
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "location": [float(self.value.real), float(self.value.imag)],
+            "classification": self.classification,
+            "kind": self.kind,
+            "stability": self.stability,
+            "unstable": self.is_unstable,
+            "coupling": {"inputs": float(self.inputs), "outputs": float(self.outputs),
+                         "joint": float(self.joint)},
+            "method": self.method,
+            "eigenvalue_condition": _json_float(float(self.eigenvalue_condition)),
+        }
+
+
+@dataclass(frozen=True)
+class ModeCouplings:
+    """Coupling and classification of every mode of a realization.
+
+    Attributes
+    ----------
+    modes : tuple of ModeCoupling
+        One per eigenvalue of A (sorted by real part, then imaginary part).
+    minimal_order : int
+        Number of modes that are not hidden (the staircase's minimal order).
+    hidden_tolerance : float
+        The staircase rank tolerance (relative).
+    nearly_hidden_level : float
+        Threshold on ``joint`` for "nearly_hidden".
+    decisions_clear : bool
+        Whether the staircase decisions behind "hidden" were clear.
+    discrete : bool
+    marginal_tol : float
+    """
+
+    modes: tuple[ModeCoupling, ...]
+    minimal_order: int
+    hidden_tolerance: float
+    nearly_hidden_level: float
+    decisions_clear: bool
+    discrete: bool
+    marginal_tol: float
+
+    @property
+    def flagged(self) -> tuple[ModeCoupling, ...]:
+        """The hidden and nearly hidden modes."""
+        return tuple(m for m in self.modes if m.classification != "coupled")
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "modes": [m.as_dict() for m in self.flagged],
+            "minimal_order": self.minimal_order,
+            "thresholds": {"hidden": float(self.hidden_tolerance),
+                           "nearly_hidden": float(self.nearly_hidden_level),
+                           "marginal": float(self.marginal_tol)},
+            "decisions_clear": self.decisions_clear,
+        }
+
+
+def _side_kind(inputs: float, outputs: float) -> HiddenKind:
+    if inputs <= 0.1 * outputs:
+        return "uncontrollable"
+    if outputs <= 0.1 * inputs:
+        return "unobservable"
+    return "uncontrollable_and_unobservable"
+
+
+def mode_couplings(
+    r: Realization,
+    *,
+    tol: float | None = None,
+    marginal_tol: float = DEFAULT_MARGINAL_TOL,
+    minimal: MinimalRealization | None = None,
+) -> ModeCouplings:
+    """Classify every mode as hidden, nearly hidden or coupled, with its coupling levels.
+
+    "Hidden" is the staircase's decision (:func:`minimal_realization`, so that the
+    hidden modes and the minimal order always agree); the couplings are measured per
+    mode (:class:`ModeCoupling`): eigenvector couplings for simple, well-conditioned
+    eigenvalues, PBH singular values (Eising's distance, restricted to the eigenvalue)
+    otherwise. The removed eigenvalues are assigned to the eigenvalues of A by an
+    optimal assignment of their distances.
+
+    Parameters
+    ----------
+    r : Realization
+        ``A : (n, n)``, ``B : (n, m)``, ``C : (p, n)``, ``D : (p, m)``.
+    tol : float, optional, keyword-only
+        Staircase rank tolerance (see :func:`minimal_realization`).
+    marginal_tol : float, keyword-only
+        Width of the marginal band (see :func:`mode_stability`).
+    minimal : MinimalRealization, optional, keyword-only
+        A minimal realization of ``r`` already computed with the same ``tol``.
+
+    Returns
+    -------
+    ModeCouplings
+
+    Raises
+    ------
+    InvalidModelError
+        If ``r`` is not a Realization or a tolerance is out of range.
+    NumericalTroubleError
+        If a decomposition fails.
+
+    Examples
+    --------
+    >>> r = Realization.from_arrays([[-1.0, 0.0], [0.0, 0.5]], [[1.0], [1.0]],
+    ...                             [[1.0, 1e-9]], [[0.0]])
+    >>> m = mode_couplings(r).modes[1]
+    >>> m.classification, m.kind, m.stability, f"{m.outputs:.1e}"
+    ('nearly_hidden', 'unobservable', 'unstable', '1.0e-09')
+    """
+    from ._threads import limited_blas_threads
+
+    with limited_blas_threads():  # many small SVDs: threads only add contention
+        return _mode_couplings(r, tol=tol, marginal_tol=marginal_tol, minimal=minimal)
+
+
+def _mode_couplings(r: Realization, *, tol: float | None, marginal_tol: float,
+                    minimal: MinimalRealization | None) -> ModeCouplings:
+    """Implementation of :func:`mode_couplings`."""
+    from scipy.optimize import linear_sum_assignment
+
+    r = _check_realization(r)
+    mode_stability(0.0, discrete=False, marginal_tol=marginal_tol)  # validates it
+    mr = minimal if minimal is not None else minimal_realization(r, tol=tol)
+    stored = _mode_sides(r)
+    n = r.order
+    if n and np.any(mr.state_scaling != 1.0):  # exact: powers of 2
+        analysis = _mode_sides(_scaled(r, np.asarray(mr.state_scaling)))
+        # same eigenvalues (a diagonal similarity); pair them by an optimal assignment
+        cost = np.abs(stored.values[:, None] - analysis.values[None, :])
+        _, perm = linear_sum_assignment(cost)
+        joint = analysis.inputs[perm] * analysis.outputs[perm]
+    else:
+        joint = stored.inputs * stored.outputs
+    removed = [(complex(z), "uncontrollable") for z in np.asarray(mr.uncontrollable_modes)] + [
+        (complex(z), "unobservable") for z in np.asarray(mr.unobservable_modes)]
+    hidden_kind: dict[int, str] = {}
+    if removed and n:
+        cost = np.abs(np.array([z for z, _ in removed])[:, None] - stored.values[None, :])
+        rows, cols = linear_sum_assignment(cost)
+        hidden_kind = {int(j): removed[int(i)][1] for i, j in zip(rows, cols)}
+    inputs, outputs = stored.inputs.copy(), stored.outputs.copy()
+    # inside a PBH cluster the levels are interchangeable: the smallest go to the
+    # members the staircase removed
+    for members in stored.clusters:
+        if len(members) < 2:
+            continue
+        order = sorted(members, key=lambda j: (j not in hidden_kind, j))
+        by_joint = sorted(members, key=lambda j: joint[j])
+        pairs = [(inputs[j], outputs[j], joint[j]) for j in by_joint]
+        for j, (i_, o_, p_) in zip(order, pairs):
+            inputs[j], outputs[j], joint[j] = i_, o_, p_
+    rtol = mr.tolerance
+    modes: list[ModeCoupling] = []
+    for j in range(n):
+        value = complex(stored.values[j])
+        kind: HiddenKind | None
+        if j in hidden_kind:
+            cls: Classification = "hidden"
+            kind = "uncontrollable" if hidden_kind[j] == "uncontrollable" else "unobservable"
+            if kind == "uncontrollable" and outputs[j] <= rtol:
+                kind = "uncontrollable_and_unobservable"
+        elif joint[j] <= NEARLY_HIDDEN_LEVEL:
+            cls, kind = "nearly_hidden", _side_kind(float(inputs[j]), float(outputs[j]))
+        else:
+            cls, kind = "coupled", None
+        modes.append(ModeCoupling(
+            value=value, classification=cls, kind=kind,
+            stability=mode_stability(value, discrete=r.is_discrete, marginal_tol=marginal_tol),
+            inputs=float(inputs[j]), outputs=float(outputs[j]), joint=float(joint[j]),
+            method=stored.methods[j], eigenvalue_condition=float(stored.conditions[j])))
+    modes.sort(key=lambda m: (m.value.real, m.value.imag))
+    return ModeCouplings(
+        modes=tuple(modes),
+        minimal_order=mr.order,
+        hidden_tolerance=float(rtol),
+        nearly_hidden_level=NEARLY_HIDDEN_LEVEL,
+        decisions_clear=bool(mr.decisions_clear),
+        discrete=r.is_discrete,
+        marginal_tol=float(marginal_tol),
+    )
+
+
 # ----------------------------------------------------------------------------- zeros
 def _zeros_slycot(r: Realization) -> ComplexArray:
     import slycot  # local import: optional at run time, fallback below
@@ -1397,7 +1843,11 @@ __all__ = [
     "HiddenMode",
     "HiddenModes",
     "KalmanDecomposition",
+    "LOOSER_TOLERANCE_FACTORS",
     "MinimalRealization",
+    "ModeCoupling",
+    "ModeCouplings",
+    "NEARLY_HIDDEN_LEVEL",
     "RankDecision",
     "StaircaseResult",
     "controllable_staircase",
@@ -1405,6 +1855,7 @@ __all__ = [
     "invariant_zeros",
     "kalman_decomposition",
     "minimal_realization",
+    "mode_couplings",
     "mode_stability",
     "observable_staircase",
     "state_scaling",

@@ -522,19 +522,20 @@ def response_horizon(
         )
     decades = math.log(1.0 / settle_fraction)
     notes: list[str] = []
-    poles = r.poles()
+    # eigvals returns a real array when every pole is real: make it complex so that
+    # the logarithm of a pole on the negative real axis is ln|z| + j*pi, not NaN
+    poles = np.asarray(r.poles(), dtype=complex)
     if r.is_discrete:
         period = float(r.sample_period)  # type: ignore[arg-type]
         mag = np.abs(poles)
         with np.errstate(divide="ignore"):
             rates = -np.log(mag) / period  # +inf for poles at z = 0
-        # complex log: a real negative pole (z = -0.3) has log|z| + j pi, not NaN
-        lam_scale = np.abs(np.log(np.where(mag > 0, poles, 1.0).astype(complex))) / period
+        lam_scale = np.abs(np.log(np.where(mag > 0, poles, 1.0 + 0j))) / period
     else:
         period = 0.0
         rates = -poles.real
         lam_scale = np.abs(poles)
-    scale = max(1.0, float(lam_scale.max())) if lam_scale.size else 1.0
+    scale = max(1.0, float(lam_scale[np.isfinite(lam_scale)].max(initial=0.0)))
     tol = marginal_rtol * scale
     stable = rates[rates > tol]
     finite_stable = stable[np.isfinite(stable)]
@@ -559,7 +560,8 @@ def response_horizon(
         else:
             horizon = default_horizon if not r.is_discrete else max(default_horizon, (2 * r.order + 2) * period)
             notes.append(f"no decaying or growing mode: default horizon {horizon:g} s")
-    fastest = float(lam_scale[np.isfinite(lam_scale)].max()) if lam_scale.size else None
+    finite_scale = lam_scale[np.isfinite(lam_scale)]
+    fastest = float(finite_scale.max()) if finite_scale.size else None
     capped = False
     if r.is_discrete:
         step = period

@@ -192,12 +192,242 @@ def build_mimo_changed(rng, n, delta, cond, io):
     return r1, _transformed(rng, changed, cond), f"n={n} {io[1]}x{io[0]} input {j} gain x(1+{delta:.0e})"
 
 
+# ------------------------------------------- transfer-function and zero-pole-gain documents
+# Pairs of model DOCUMENTS (issue 10): each transfer function / zero-pole-gain model is
+# realized by audit.conversions (as `lti-audit` loads it) and carries its stored data;
+# labels are verified on the stored coefficients and factors (benchmarks/_cases.py).
+MODELS = Path(__file__).resolve().parent / "models"
+
+
+def _tf(num, den, period=None, name="transfer function"):  # type: ignore[no-untyped-def]
+    from audit.conversions import realization_from_transfer_function
+
+    return realization_from_transfer_function(num, den, period).with_name(name)
+
+
+def _factored(z, p, k, period=None, name="zero-pole-gain"):  # type: ignore[no-untyped-def]
+    from audit.conversions import realization_from_zeros_poles_gain
+
+    return realization_from_zeros_poles_gain(z, p, k, period).with_name(name)
+
+
+def _poles(rng: np.random.Generator, n: int, decades: float) -> np.ndarray:
+    out: list[complex] = []
+    while len(out) < n:
+        mag = 10 ** rng.uniform(0, decades)
+        if n - len(out) >= 2 and rng.random() < 0.6:
+            zeta = rng.uniform(0.05, 0.8)
+            p = complex(-zeta * mag, mag * math.sqrt(1 - zeta * zeta))
+            out += [p, p.conjugate()]
+        else:
+            out.append(complex(-mag, 0.0))
+    return np.array(out[:n])
+
+
+def _siso_tf(rng, n, decades, period=None):  # type: ignore[no-untyped-def]
+    p, z = _poles(rng, n, decades), _poles(rng, n - 1, decades)
+    if period is not None:
+        p, z = np.exp(p * period), np.exp(z * period)
+    den = np.real(np.poly(p))
+    num = np.real(np.poly(z)) * 10 ** rng.uniform(-1, 1)
+    return num, den, p, z
+
+
+def _observable_companion(num, den, period=None, name="observable companion"):  # type: ignore[no-untyped-def]
+    """Observable companion form whose entries ARE the stored coefficients (den[0] = 1)."""
+    n = len(den) - 1
+    num = np.r_[np.zeros(len(den) - len(num)), num]
+    a = np.zeros((n, n))
+    a[:, 0] = -den[1:]
+    a[:-1, 1:] = np.eye(n - 1)
+    c = np.zeros((1, n))
+    c[0, 0] = 1.0
+    return Realization.from_arrays(a, (num[1:] - num[0] * den[1:]).reshape(-1, 1), c,
+                                   [[num[0]]], period, name=name)
+
+
+def _modal_high_precision(num, den, period=None, name="modal (300-bit)"):  # type: ignore[no-untyped-def]
+    """Real modal realization from the stored coefficients: roots and residues in
+    300-bit ball arithmetic (python-flint), rounded to doubles once."""
+    import flint
+    import scipy.linalg
+
+    old = flint.ctx.prec
+    flint.ctx.prec = 300
+    try:
+        dpoly = flint.acb_poly([flint.acb(float(x)) for x in den[::-1]])
+        npad = np.r_[np.zeros(len(den) - len(num)), num]
+        npoly = flint.acb_poly([flint.acb(float(x)) for x in npad[::-1]])
+        dmain = npoly[len(den) - 1] / flint.acb(float(den[0]))
+        rest = npoly - dpoly * dmain
+        roots = dpoly.roots(tol=1e-60)
+        deriv = dpoly.derivative()
+        blocks, bs, cs = [], [], []
+        for q in roots:
+            pc = complex(float(q.real.mid()), float(q.imag.mid()))
+            if pc.imag < 0 and not q.imag.contains(0):
+                continue  # the upper member of each pair carries it
+            rr = rest(q) / deriv(q)
+            rc = complex(float(rr.real.mid()), float(rr.imag.mid()))
+            if q.imag.contains(0):
+                blocks.append(np.array([[pc.real]])); bs.append(1.0); cs.append(rc.real)
+            else:
+                blocks.append(np.array([[pc.real, pc.imag], [-pc.imag, pc.real]]))
+                bs += [1.0, 0.0]; cs += [2 * rc.real, 2 * rc.imag]
+        d = float(dmain.real.mid())
+    finally:
+        flint.ctx.prec = old
+    return Realization.from_arrays(scipy.linalg.block_diag(*blocks), np.array(bs).reshape(-1, 1),
+                                   np.array(cs).reshape(1, -1), [[d]], period, name=name)
+
+
+def build_tf_companion(rng, n, decades):  # type: ignore[no-untyped-def]
+    num, den, _, _ = _siso_tf(rng, n, decades)
+    return _tf([[num]], [[den]]), _observable_companion(num, den), (
+        f"order {n} transfer function (poles over {decades:g} decades) vs its observable companion")
+
+
+def build_tf_modal(rng, n, decades, period):  # type: ignore[no-untyped-def]
+    num, den, _, _ = _siso_tf(rng, n, decades, period)
+    return _tf([[num]], [[den]], period), _modal_high_precision(num, den, period), (
+        f"order {n}{' discrete' if period else ''} transfer function vs its 300-bit modal realization")
+
+
+def build_tf_factors(rng, n, kind):  # type: ignore[no-untyped-def]
+    if kind == "integers":
+        p, z = -np.arange(1.0, n + 1), -np.arange(1.5, n, 1.0)
+    elif kind == "clustered":
+        p, z = -(1 + rng.random(n)), -(1 + rng.random(n - 1))
+    else:
+        p, z = _poles(rng, n, 2.0), _poles(rng, n - 1, 2.0)
+    k = 10 ** rng.uniform(-1, 1)
+    return (_factored([[z]], [[p]], [[k]]), _tf([[np.real(np.poly(z)) * k]], [[np.real(np.poly(p))]]),
+            f"degree {n} zero-pole-gain ({kind} poles) vs its expanded coefficients")
+
+
+def _state_space_source(rng, n, io, unstable, source):  # type: ignore[no-untyped-def]
+    import json
+
+    import scipy.linalg
+
+    if source == "build48":
+        d = json.load(open(MODELS / "build48.json"))["state_space"]
+        return tuple(np.array(d[k], dtype=float) for k in "abcd")
+    if source == "cdplayer":
+        d = json.load(open(MODELS / "cdplayer120.json"))["state_space"]
+        a, b, c = (np.array(d[k], dtype=float) for k in "abc")
+        w, v = scipy.linalg.eig(a)
+        keep = np.argsort(np.abs(w))[:n]
+        # real modal truncation (slowest n modes; conjugate pairs stay together)
+        t, _ = np.linalg.qr(np.column_stack([v[:, keep].real, v[:, keep].imag]))
+        t = t[:, :n]
+        a_r = t.T @ a @ t
+        return a_r, t.T @ b, c @ t, np.zeros((c.shape[0], b.shape[1]))
+    mags = np.geomspace(0.1, 100, n // 2)
+    blocks = []
+    for wm in mags:
+        z = rng.uniform(0.05, 0.7)
+        q = complex(-z * wm, wm * math.sqrt(1 - z * z))
+        blocks.append(np.array([[q.real, q.imag], [-q.imag, q.real]]))
+    if n % 2:
+        blocks.append(np.array([[-1.0]]))
+    a = scipy.linalg.block_diag(*blocks)
+    for k in range(unstable):
+        a[2 * k, 2 * k] *= -1
+        a[2 * k + 1, 2 * k + 1] *= -1
+    q_, _ = np.linalg.qr(rng.standard_normal((n, n)))
+    a = q_ @ a @ q_.T
+    p, m = io
+    return a, rng.standard_normal((n, m)), rng.standard_normal((p, n)), np.zeros((p, m))
+
+
+def build_ss_to_tf(rng, n, io, unstable, source, how):  # type: ignore[no-untyped-def]
+    import scipy.signal
+
+    a, b, c, d = _state_space_source(rng, n, io, unstable, source)
+    p, m = c.shape[0], b.shape[1]
+    if how == "scipy":
+        nums = [[None] * m for _ in range(p)]
+        dens = [[None] * m for _ in range(p)]
+        for j in range(m):
+            nm, dn = scipy.signal.ss2tf(a, b, c, d, input=j)
+            for i in range(p):
+                nums[i][j], dens[i][j] = np.asarray(nm[i]), np.asarray(dn)
+    else:
+        import control
+
+        g = control.ss2tf(control.ss(a, b, c, d))
+        nums = [[np.asarray(g.num[i][j], dtype=float) for j in range(m)] for i in range(p)]
+        dens = [[np.asarray(g.den[i][j], dtype=float) for j in range(m)] for i in range(p)]
+    ss = Realization.from_arrays(a, b, c, d, name="state space")
+    name = source if source != "random" else f"random n={n} {p}x{m}{' unstable' if unstable else ''}"
+    return ss, _tf(nums, dens), f"{name} vs its {how} ss2tf transfer function"
+
+
+def build_tf_changed(rng, n, delta):  # type: ignore[no-untyped-def]
+    num, den, _, _ = _siso_tf(rng, n, 2.0)
+    changed = den.copy()
+    k = int(rng.integers(1, n + 1))
+    changed[k] *= 1 + delta
+    return _tf([[num]], [[den]]), _observable_companion(num, changed), (
+        f"order {n} transfer function vs companion with den[{k}] x(1+{delta:.0e})")
+
+
+def build_factors_moved(rng, n, delta):  # type: ignore[no-untyped-def]
+    p, z = _poles(rng, n, 2.0), _poles(rng, n - 1, 2.0)
+    moved = p.copy()
+    k = int(rng.integers(0, n))
+    moved[k] *= 1 + delta
+    if moved[k].imag != 0:  # keep the conjugate partner
+        partner = int(np.argmin(np.abs(p - np.conj(p[k]))))
+        moved[partner] = np.conj(moved[k])
+    return _factored([[z]], [[moved]], [[1.0]]), _tf([[np.real(np.poly(z))]], [[np.real(np.poly(p))]]), (
+        f"degree {n} zero-pole-gain with a pole x(1+{delta:.0e}) vs coefficients of the original")
+
+
+def build_discrete_tf(rng, n, period):  # type: ignore[no-untyped-def]
+    import scipy.signal
+
+    poles = cs.discrete_poles_near_circle(rng, n, period=period)
+    r = cs.reference_model(rng, poles, inputs=1, outputs=1, sample_period=period)
+    nm, dn = scipy.signal.ss2tf(r.a, r.b, r.c, r.d)
+    return r, _tf([[nm[0]]], [[dn]], period), (
+        f"discrete n={n} (T={period:g} s, poles near z = 1) vs its scipy ss2tf transfer function")
+
+
+def build_discrete_slow_tf(rng, n, period, slowest):  # type: ignore[no-untyped-def]
+    """Slow continuous modes (from ``slowest`` rad/s up, over 3 decades) sampled at
+    ``period``: poles crowd near z = 1, where polynomial coefficients lose the model."""
+    import scipy.linalg
+    import scipy.signal
+
+    mags = np.geomspace(slowest, slowest * 1e3, n)
+    blocks, k = [], 0
+    while k < n:
+        if k + 1 < n and rng.random() < 0.5:
+            zeta = rng.uniform(0.05, 0.7)
+            q = complex(-zeta * mags[k], mags[k] * math.sqrt(1 - zeta * zeta))
+            z = np.exp(q * period)
+            blocks.append(np.array([[z.real, z.imag], [-z.imag, z.real]]))
+            k += 2
+        else:
+            blocks.append(np.array([[math.exp(-mags[k] * period)]]))
+            k += 1
+    a = scipy.linalg.block_diag(*blocks)
+    b, c = rng.standard_normal((n, 1)), rng.standard_normal((1, n))
+    r = Realization.from_arrays(a, b, c, [[0.0]], period)
+    nm, dn = scipy.signal.ss2tf(r.a, r.b, r.c, r.d)
+    return r, _tf([[nm[0]]], [[dn]], period), (
+        f"discrete n={n} (T={period:g} s, slowest mode {slowest:g} rad/s) vs its scipy ss2tf "
+        "transfer function")
+
+
 def _log_uniform(rng: np.random.Generator, lo: float, hi: float) -> float:
     return float(10.0 ** rng.uniform(math.log10(lo), math.log10(hi)))
 
 
 # family -> (intent, list of parameter tuples (quick), list (full), builder)
-def _families(quick: bool) -> list[tuple[str, str, list[Any], Callable[..., Any]]]:
+def _families(quick: bool, documents: bool = True) -> list[tuple[str, str, list[Any], Callable[..., Any]]]:
     def pick(q: list[Any], f: list[Any]) -> list[Any]:
         return q if quick else f
 
@@ -246,13 +476,50 @@ def _families(quick: bool) -> list[tuple[str, str, list[Any], Callable[..., Any]
         ("mimo_changed", "different",
          pick([(4, (2, 2))], [(8, (2, 3)), (24, (4, 4))]),
          lambda rng, n, io: build_mimo_changed(rng, n, _log_uniform(rng, 3e-4, 3e-3), 1e5, io)),
-    ]
+    ] + ([] if not documents else [
+        ("tf_vs_companion", "equivalent",
+         pick([(8, 1.0)], [(8, 1.0), (12, 2.0), (16, 2.0), (20, 3.0), (25, 2.0), (25, 3.0)]),
+         lambda rng, n, dec: build_tf_companion(rng, n, dec)),
+        ("tf_vs_modal", "equivalent",
+         pick([(10, 2.0, None)], [(10, 2.0, None), (20, 2.0, None), (30, 2.0, None),
+                                  (40, 3.0, None), (55, 2.0, None), (10, 2.0, 1e-3),
+                                  (20, 2.0, 1e-3)]),
+         lambda rng, n, dec, per: build_tf_modal(rng, n, dec, per)),
+        ("factors_vs_tf", "equivalent",
+         pick([(20, "integers")], [(20, "integers"), (40, "integers"), (30, "spread"),
+                                   (60, "clustered"), (100, "clustered")]),
+         lambda rng, n, kind: build_tf_factors(rng, n, kind)),
+        ("ss_to_tf", "equivalent",
+         pick([(30, (3, 5), 0, "random", "scipy")],
+              [(30, (5, 3), 0, "random", "scipy"), (30, (5, 3), 0, "random", "control"),
+               (55, (2, 2), 2, "random", "scipy"), (55, (2, 2), 2, "random", "control"),
+               (80, (1, 1), 0, "random", "scipy"), (120, (1, 1), 0, "random", "control"),
+               (48, (1, 1), 0, "build48", "scipy"), (48, (1, 1), 0, "build48", "control"),
+               (30, (2, 2), 0, "cdplayer", "scipy"), (30, (2, 2), 0, "cdplayer", "control")]),
+         lambda rng, n, io, u, src, how: build_ss_to_tf(rng, n, io, u, src, how)),
+        ("discrete_tf", "equivalent",
+         pick([(6, 3e-3)], [(6, 3e-3), (9, 3e-3), (9, 1e-3), (16, 1e-2)]),
+         lambda rng, n, per: build_discrete_tf(rng, n, per)),
+        ("discrete_slow_tf", "equivalent",
+         pick([(9, 3e-3, 0.3)], [(9, 3e-3, 0.02), (9, 3e-3, 1.0), (9, 1e-3, 2.0), (12, 1e-3, 5.0),
+                                 (9, 3e-3, 5.0), (9, 3e-3, 10.0)]),
+         lambda rng, n, per, slow: build_discrete_slow_tf(rng, n, per, slow)),
+        ("tf_changed", "different",
+         pick([(10,)], [(10,), (20,), (30,), (40,)]),
+         lambda rng, n: build_tf_changed(rng, n, _log_uniform(rng, 1e-3, 1e-2))),
+        ("factors_moved", "different",
+         pick([(10,)], [(10,), (20,), (40,)]),
+         lambda rng, n: build_factors_moved(rng, n, _log_uniform(rng, 1e-3, 1e-2))),
+    ])
 
 
-def build_suite(*, quick: bool, seed: int) -> list[cs.BenchmarkPair]:
-    """Construct and verify every pair (labels from the stored doubles)."""
+def build_suite(*, quick: bool, seed: int, only: list[str] | None = None) -> list[cs.BenchmarkPair]:
+    """Construct and verify every pair (labels from the stored doubles); ``only`` keeps
+    the families whose names start with one of the given prefixes."""
     out: list[cs.BenchmarkPair] = []
     for fam_index, (family, intent, params, builder) in enumerate(_families(quick)):
+        if only and not any(family.startswith(o) for o in only):
+            continue
         for i, prm in enumerate(params):
             pair_seed = (seed, fam_index, i)
             rng = np.random.default_rng(np.random.SeedSequence(list(pair_seed)))
@@ -488,8 +755,46 @@ def _rigorous_consistent(p: cs.BenchmarkPair) -> bool:
     return True
 
 
-def run(*, quick: bool, seed: int, rtol: float) -> tuple[list[cs.BenchmarkPair], dict[str, Any], str]:
-    pairs = build_suite(quick=quick, seed=seed)
+def document_of(r: Realization) -> dict[str, Any]:
+    """The model document a benchmark model stands for (stored data as stored)."""
+    doc: dict[str, Any] = {"lti_model": 1, "name": r.name, "sample_period": r.sample_period}
+    st = r.stored
+    if st is None:
+        doc["state_space"] = {k: getattr(r, k).tolist() for k in "abcd"}
+    elif hasattr(st, "numerator"):
+        doc["transfer_function"] = {
+            "numerator": [[np.asarray(c).tolist() for c in row] for row in st.numerator],
+            "denominator": [[np.asarray(c).tolist() for c in row] for row in st.denominator]}
+    else:
+        def pairs(v: Any) -> list[list[float]]:
+            return [[float(np.real(x)), float(np.imag(x))] for x in v]
+        doc["zeros_poles_gain"] = {"zeros": [[pairs(c) for c in row] for row in st.zeros],
+                                   "poles": [[pairs(c) for c in row] for row in st.poles_],
+                                   "gain": st.gain.tolist()}
+    return doc
+
+
+def dump_documents(pairs: list[cs.BenchmarkPair], folder: str) -> None:
+    """Write each kept pair as two model documents and its label (to judge them with
+    another version of lti-audit, e.g. the one before a change)."""
+    import json
+
+    out = Path(folder)
+    out.mkdir(parents=True, exist_ok=True)
+    for p in pairs:
+        if p.label == "discarded":
+            continue
+        stem = f"{p.family}-{p.index}"
+        (out / f"{stem}-1.json").write_text(json.dumps(document_of(p.first)))
+        (out / f"{stem}-2.json").write_text(json.dumps(document_of(p.second)))
+        (out / f"{stem}.label").write_text(f"{p.label} {p.verified.relative_difference!r} {p.description}\n")
+
+
+def run(*, quick: bool, seed: int, rtol: float, only: list[str] | None = None,
+        dump: str | None = None) -> tuple[list[cs.BenchmarkPair], dict[str, Any], str]:
+    pairs = build_suite(quick=quick, seed=seed, only=only)
+    if dump:
+        dump_documents(pairs, dump)
     records = evaluate(pairs, rtol=rtol)
     summary = summarise(pairs, records)
     return pairs, summary, render(pairs, summary, records, seed=seed, rtol=rtol, quick=quick)
@@ -501,12 +806,18 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=20240601)
     parser.add_argument("--rtol", type=float, default=None,
                         help="relative tolerance (default: audit.evidence.DEFAULT_RTOL)")
+    parser.add_argument("--families", default="",
+                        help="comma-separated family-name prefixes to run (default: all)")
+    parser.add_argument("--dump-documents", default=None, metavar="DIR",
+                        help="also write every kept pair as model documents into DIR")
     args = parser.parse_args(argv)
     from audit.evidence import DEFAULT_RTOL
 
     rtol = DEFAULT_RTOL if args.rtol is None else args.rtol
     start = time.perf_counter()
-    _, summary, text = run(quick=args.quick, seed=args.seed, rtol=rtol)
+    only = [f for f in args.families.split(",") if f] or None
+    _, summary, text = run(quick=args.quick, seed=args.seed, rtol=rtol, only=only,
+                           dump=args.dump_documents)
     print(text)
     print(f"\ntotal wall-clock {time.perf_counter() - start:.1f} s")
     return 0 if not summary["audit_failures"] else 1

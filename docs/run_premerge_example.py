@@ -3,7 +3,7 @@
 Copies ``fixtures/example_repo`` into a temporary folder, makes it a git repository whose
 ``origin/main`` is the committed example, then applies the merge request of the
 walk-through (the states of ``pitch_axis_ss.json`` reordered, and by mistake a feedthrough
-``d = [[0.05]]`` added to ``pitch_axis_zoh_10ms.json``) and runs::
+``d = [[0.05]]`` added to ``pitch_axis_zero_order_hold_10ms.json``) and runs::
 
     lti-audit check
     lti-audit check --against origin/main --markdown lti-audit.md --junit lti-audit.xml
@@ -62,10 +62,10 @@ def main() -> int:
         ss["c"] = [[row[j] for j in order] for row in ss["c"]]
         ss_path.write_text(json.dumps(doc, indent=2) + "\n")
         # ... and, by mistake, a feedthrough added to the flight-computer model
-        zoh_path = repo / "models" / "pitch_axis_zoh_10ms.json"
-        doc = json.loads(zoh_path.read_text())
+        held_path = repo / "models" / "pitch_axis_zero_order_hold_10ms.json"
+        doc = json.loads(held_path.read_text())
         doc["state_space"]["d"] = [[0.05]]
-        zoh_path.write_text(json.dumps(doc, indent=2) + "\n")
+        held_path.write_text(json.dumps(doc, indent=2) + "\n")
         print(_check(repo, "--against", "origin/main", "--markdown", "lti-audit.md",
                      "--junit", "lti-audit.xml"))
         print("--- lti-audit.md ---")

@@ -59,7 +59,7 @@ def tf_response(num, den, s: complex) -> np.ndarray:
     )
 
 
-def zpk_response(z, p, k, s: complex) -> complex:
+def zeros_poles_gain_response(z, p, k, s: complex) -> complex:
     """k prod(s - z) / prod(s - p) as a running product (closed form, no source)."""
     value = complex(k)
     for zz in z:
@@ -292,7 +292,7 @@ def test_zeros_poles_gain_siso_against_scipy() -> None:
     assert matched_distance(r.poles(), p).max() <= 1e-12 * 10
 
 
-def test_zpk_high_order_cascade_is_accurate() -> None:
+def test_zeros_poles_gain_high_order_cascade_is_accurate() -> None:
     # order 20 with poles spread over six decades: the cascade never expands polynomials
     rng = np.random.default_rng(7)
     mags = np.logspace(-2, 4, 10)
@@ -305,7 +305,7 @@ def test_zpk_high_order_cascade_is_accurate() -> None:
     assert r.order == 20
     for w in np.logspace(-3, 5, 9):
         s = 1j * w
-        ref = zpk_response(zeros, poles, k, s)
+        ref = zeros_poles_gain_response(zeros, poles, k, s)
         # closed form product (no source); relative 1e-9
         np.testing.assert_allclose(real_response(r, s)[0, 0], ref, rtol=1e-9)
     back = zeros_poles_gain_from_realization(r)
@@ -318,7 +318,7 @@ def test_zpk_high_order_cascade_is_accurate() -> None:
     assert back.gain[0][0] == pytest.approx(k, rel=1e-8)
 
 
-def test_zpk_stiff_siso_recovers_zeros_poles_gain() -> None:
+def test_zeros_poles_gain_stiff_siso_recovers_zeros_poles_gain() -> None:
     z, p, k = [-10.0, -1e4], [-1.0, -1e3, -1e6], 7.0
     r = realization_from_zeros_poles_gain([[z]], [[p]], [[k]])
     data = zeros_poles_gain_from_realization(r)
@@ -328,7 +328,7 @@ def test_zpk_stiff_siso_recovers_zeros_poles_gain() -> None:
     assert data.gain[0][0] == pytest.approx(k, rel=1e-9)
 
 
-def test_zpk_accepts_re_im_pairs_and_discrete_time() -> None:
+def test_zeros_poles_gain_accepts_re_im_pairs_and_discrete_time() -> None:
     dt = 0.05
     z = [[[[0.2, 0.3], [0.2, -0.3]]]]
     p = [[[[0.5, 0.4], [0.5, -0.4], 0.9]]]
@@ -339,11 +339,11 @@ def test_zpk_accepts_re_im_pairs_and_discrete_time() -> None:
     for w in [0.1, 1.0, 2.5]:
         zz = np.exp(1j * w)
         # closed form product at z = e^{j w} (no source)
-        np.testing.assert_allclose(real_response(r, zz)[0, 0], zpk_response(zc, pc, 1.5, zz),
+        np.testing.assert_allclose(real_response(r, zz)[0, 0], zeros_poles_gain_response(zc, pc, 1.5, zz),
                                    rtol=1e-12)
 
 
-def test_zpk_mimo_shared_poles_is_reduced() -> None:
+def test_zeros_poles_gain_mimo_shared_poles_is_reduced() -> None:
     # every channel has the pole pair -1 +- 2j; residues of rank 1 -> order 2
     # (McMillan degree; Kailath, Linear Systems, 1980, ch. 6, from memory)
     poles = [-1 + 2j, -1 - 2j]
@@ -352,17 +352,17 @@ def test_zpk_mimo_shared_poles_is_reduced() -> None:
     r = realization_from_zeros_poles_gain(zeros, [[poles] * 2] * 2, gain)
     assert r.order == 2
     for s in S_POINTS:
-        ref = np.array([[zpk_response([], poles, g, s) for g in row] for row in gain])
+        ref = np.array([[zeros_poles_gain_response([], poles, g, s) for g in row] for row in gain])
         np.testing.assert_allclose(real_response(r, s), ref, rtol=1e-10)
 
 
-def test_zpk_zero_gain_channel_and_order_zero() -> None:
+def test_zeros_poles_gain_zero_gain_channel_and_order_zero() -> None:
     r = realization_from_zeros_poles_gain([[[-1.0], []]], [[[-2.0], []]], [[0.0, 4.0]])
     assert r.order == 0
     np.testing.assert_allclose(r.d, [[0.0, 4.0]], rtol=0, atol=0)  # closed form
 
 
-# ============================================================ ss -> zpk / tf
+# ============================================================ ss -> zeros_poles_gain / tf
 def _random_minimal_siso(rng: np.random.Generator, n: int, with_d: bool) -> Realization:
     a = rng.standard_normal((n, n)) - 2.0 * np.eye(n)
     b = rng.standard_normal((n, 1))
@@ -396,10 +396,10 @@ def test_zeros_poles_gain_against_scipy(with_d: bool, seed: int) -> None:
     assert data.gain[0][0] == pytest.approx(num[0] / den[0], rel=1e-9)
     # poles: eigenvalues of A (scipy) for a minimal system
     assert matched_distance(data.poles[0][0], scipy.linalg.eigvals(r.a)).max() <= 1e-9
-    # the zpk data reproduce the frequency response (closed form product)
+    # the zeros_poles_gain data reproduce the frequency response (closed form product)
     for s in S_POINTS:
         np.testing.assert_allclose(
-            zpk_response(data.zeros[0][0], data.poles[0][0], data.gain[0][0], s),
+            zeros_poles_gain_response(data.zeros[0][0], data.poles[0][0], data.gain[0][0], s),
             real_response(r, s)[0, 0], rtol=1e-8,
         )
 
@@ -499,12 +499,12 @@ def test_order_zero_everywhere() -> None:
 def test_results_are_json_friendly() -> None:
     r = realization_from_zeros_poles_gain([[[-1.0 + 1j, -1.0 - 1j]]],
                                           [[[-2.0, -3.0 + 1j, -3.0 - 1j]]], [[2.0]], 0.5)
-    zpk = zeros_poles_gain_from_realization(r).as_dict()
+    zeros_poles_gain = zeros_poles_gain_from_realization(r).as_dict()
     tf = transfer_function_from_realization(r).as_dict()
-    text = json.dumps({"zpk": zpk, "tf": tf})
+    text = json.dumps({"zeros_poles_gain": zeros_poles_gain, "tf": tf})
     back = json.loads(text)
-    assert back["zpk"]["sample_period"] == 0.5
-    assert all(len(v) == 2 for v in back["zpk"]["zeros"][0][0])
+    assert back["zeros_poles_gain"]["sample_period"] == 0.5
+    assert all(len(v) == 2 for v in back["zeros_poles_gain"]["zeros"][0][0])
     assert isinstance(zeros_poles_gain_from_realization(r), ZerosPolesGainData)
     assert isinstance(transfer_function_from_realization(r), TransferFunctionData)
 
@@ -557,7 +557,7 @@ def test_bad_transfer_functions(num, den, dt, message) -> None:
     assert message in str(info.value)
 
 
-BAD_ZPK = [
+BAD_ZEROS_POLES_GAIN = [
     pytest.param([[[1.0 + 1.0j]]], [[[-1.0, -2.0]]], [[1.0]],
                  "zeros_poles_gain.zeros[0][0]: channel [0][0] has 1 value(s) with positive",
                  id="unpaired-complex"),
@@ -576,7 +576,7 @@ BAD_ZPK = [
 ]
 
 
-@pytest.mark.parametrize("z,p,k,message", BAD_ZPK)
+@pytest.mark.parametrize("z,p,k,message", BAD_ZEROS_POLES_GAIN)
 def test_bad_zeros_poles_gain(z, p, k, message) -> None:
     with pytest.raises(InvalidModelError) as info:
         realization_from_zeros_poles_gain(z, p, k)
@@ -594,7 +594,7 @@ def _separated(values: list[complex], new: complex, gap: float) -> bool:
 
 
 @st.composite
-def stable_siso_zpk(draw: st.DrawFn) -> tuple[list[complex], list[complex], float]:
+def stable_siso_zeros_poles_gain(draw: st.DrawFn) -> tuple[list[complex], list[complex], float]:
     n_poles = draw(st.integers(1, 6), label="n_poles")
     n_zeros = draw(st.integers(0, n_poles), label="n_zeros")
 
@@ -635,9 +635,9 @@ def _eigen_condition(m: np.ndarray, n: np.ndarray | None = None) -> tuple[np.nda
 
 
 @settings(max_examples=40, deadline=None)
-@given(stable_siso_zpk())
-def test_property_zpk_round_trip_recovers_poles_and_zeros(zpk) -> None:
-    zeros, poles, gain = zpk
+@given(stable_siso_zeros_poles_gain())
+def test_property_zeros_poles_gain_round_trip_recovers_poles_and_zeros(zeros_poles_gain) -> None:
+    zeros, poles, gain = zeros_poles_gain
     r = realization_from_zeros_poles_gain([[zeros]], [[poles]], [[gain]])
     assert r.order == len(poles)
     data = zeros_poles_gain_from_realization(r)

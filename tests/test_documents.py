@@ -85,12 +85,12 @@ def valve_tf_with(numerator: Any = None, denominator: Any = None) -> dict[str, A
     return doc
 
 
-def valve_zpk(**zpk: Any) -> dict[str, Any]:
+def valve_zeros_poles_gain(**zeros_poles_gain: Any) -> dict[str, Any]:
     """Valve actuator as zeros-poles-gain: one channel, poles -4 +/- 4.9j, zero -10."""
     body = {"zeros": [[[[-10.0, 0.0]]]], "poles": [[[[-4.0, 4.9], [-4.0, -4.9]]]],
             "gain": [[4.0]]}
-    body.update(zpk)
-    return {"lti_model": 1, "name": "valve actuator (zpk)", "sample_period": 0.001,
+    body.update(zeros_poles_gain)
+    return {"lti_model": 1, "name": "valve actuator (zeros_poles_gain)", "sample_period": 0.001,
             "zeros_poles_gain": body}
 
 
@@ -203,25 +203,25 @@ BAD_DOCUMENTS = [
                  f"transfer_function.denominator: degrees sum to 2100, above the limit "
                  f"MAX_ORDER = {MAX_ORDER} states", True, id="tf-oversize"),
     # --- zeros, poles, gain
-    pytest.param(valve_zpk(zeros=[[[[-10.0, 0.0], [-20.0, 0.0], [-30.0, 0.0]]]]),
+    pytest.param(valve_zeros_poles_gain(zeros=[[[[-10.0, 0.0], [-20.0, 0.0], [-30.0, 0.0]]]]),
                  "zeros_poles_gain[0][0]: improper (3 zeros > 2 poles); lti-audit handles "
-                 "proper models only", True, id="zpk-improper"),
-    pytest.param(valve_zpk(poles=[[[[-4.0, 4.9], [-4.0, -4.8]]]]),
+                 "proper models only", True, id="zeros_poles_gain-improper"),
+    pytest.param(valve_zeros_poles_gain(poles=[[[[-4.0, 4.9], [-4.0, -4.8]]]]),
                  "zeros_poles_gain.poles[0][0][0]: [-4.0, 4.9] has no complex-conjugate "
-                 "partner [-4.0, -4.9]", False, id="zpk-unpaired-pole"),
-    pytest.param(valve_zpk(zeros=[[[[-10.0]]]]),
+                 "partner [-4.0, -4.9]", False, id="zeros_poles_gain-unpaired-pole"),
+    pytest.param(valve_zeros_poles_gain(zeros=[[[[-10.0]]]]),
                  "zeros_poles_gain.zeros[0][0][0]: expected a complex number as an [re, im] "
-                 "pair", False, id="zpk-not-a-pair"),
-    pytest.param(valve_zpk(zeros=[[[-10.0]]]),
+                 "pair", False, id="zeros_poles_gain-not-a-pair"),
+    pytest.param(valve_zeros_poles_gain(zeros=[[[-10.0]]]),
                  "zeros_poles_gain.zeros[0][0][0]: expected a complex number as an [re, im] "
                  "pair, got -10.0 (write [-2.0, 0.0] for the real value -2)", True,
-                 id="zpk-bare-real"),
-    pytest.param(valve_zpk(gain=[[4.0, 1.0]]),
+                 id="zeros_poles_gain-bare-real"),
+    pytest.param(valve_zeros_poles_gain(gain=[[4.0, 1.0]]),
                  "zeros_poles_gain.gain: is 1x2 (outputs x inputs) but zeros is 1x1", False,
-                 id="zpk-gain-shape"),
-    pytest.param(valve_zpk(zeros=[[[]]], poles=[[[[-1.0, 0.0]] * (MAX_ORDER + 1)]]),
+                 id="zeros_poles_gain-gain-shape"),
+    pytest.param(valve_zeros_poles_gain(zeros=[[[]]], poles=[[[[-1.0, 0.0]] * (MAX_ORDER + 1)]]),
                  f"zeros_poles_gain.poles: {MAX_ORDER + 1} poles in all, above the limit "
-                 f"MAX_ORDER = {MAX_ORDER} states", True, id="zpk-oversize"),
+                 f"MAX_ORDER = {MAX_ORDER} states", True, id="zeros_poles_gain-oversize"),
     # --- sample period
     pytest.param(conveyor(sample_period=-0.01),
                  "sample_period: must be a number of seconds > 0, or null for continuous "
@@ -439,19 +439,19 @@ def test_transfer_function_numerator_leading_zeros_are_allowed() -> None:
 
 
 def test_zeros_poles_gain_discrete() -> None:
-    doc = validate_model_document(valve_zpk(
+    doc = validate_model_document(valve_zeros_poles_gain(
         poles=[[[[-4.0, -4.9], [0.5, 0.0], [-4.0, 4.9]]]]))  # pairs in any order
     assert doc.representation == "zeros_poles_gain"
     assert doc.sample_period == 0.001
 
 
 def test_zeros_poles_gain_pure_gain() -> None:
-    doc = validate_model_document(valve_zpk(zeros=[[[]]], poles=[[[]]], gain=[[2.5]]))
+    doc = validate_model_document(valve_zeros_poles_gain(zeros=[[[]]], poles=[[[]]], gain=[[2.5]]))
     assert (doc.n_outputs, doc.n_inputs) == (1, 1)
 
 
 def test_zero_gain_channel_may_list_extra_zeros() -> None:
-    doc = validate_model_document(valve_zpk(zeros=[[[[-1.0, 0.0]] * 3]], gain=[[0.0]]))
+    doc = validate_model_document(valve_zeros_poles_gain(zeros=[[[[-1.0, 0.0]] * 3]], gain=[[0.0]]))
     assert doc.n_inputs == 1
 
 
@@ -477,7 +477,7 @@ def test_good_and_bad_documents_agree_with_the_published_schema() -> None:
     from audit.schema_export import model_document_schema
 
     validator = jsonschema.Draft202012Validator(model_document_schema())
-    for good in (conveyor(), valve_tf(), valve_zpk()):
+    for good in (conveyor(), valve_tf(), valve_zeros_poles_gain()):
         validator.validate(good)
     for bad in (without(conveyor(), "sample_period"), conveyor(extra=1),
                 conveyor(transfer_function=valve_tf()["transfer_function"])):

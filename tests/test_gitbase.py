@@ -295,3 +295,52 @@ def test_without_manifest_uses_default_globs_in_cwd(repo: Path, monkeypatch, cap
     assert code == 0
     assert data["manifest"] is None and data["compared_with"] == "working tree"
     assert [(c["path"], c["status"]) for c in data["changes"]] == [("sub/m.yaml.json", "new")]
+
+
+# --------------------------------------------------------- internal stability (issue 11)
+# Invented scenario: a supplier's valve actuator. The new version adds a third state
+# (an unstable mode at s = 0.5) that reaches the output only through a rounding-level
+# C entry: same transfer function, internally unstable.
+VALVE_A = [[-1.2, 2.7], [-2.7, -10.8]]
+VALVE_B = [[-0.37], [-0.37]]
+VALVE_C = [[-0.37, 0.37]]
+HIDDEN_A = [[-1.2, 2.7, 0.0], [-2.7, -10.8, 0.0], [0.0, 0.0, 0.5]]
+HIDDEN_B = [[-0.37], [-0.37], [0.2]]
+HIDDEN_C = [[-0.37, 0.37, 3e-17]]
+
+
+def test_new_unstable_hidden_mode_is_changed_in_internal_stability(repo: Path, capsys) -> None:
+    valve = repo / "valve.json"
+    write_model(valve, VALVE_A, VALVE_B, VALVE_C, [[0.0]], name="valve")
+    commit_all(repo, "valve actuator, minimal")
+    write_model(valve, HIDDEN_A, HIDDEN_B, HIDDEN_C, [[0.0]], name="valve")
+    code, out, _, junit, md = run_check(capsys, repo, "--against", "HEAD")
+    assert code == 1
+    assert "changed_internal_stability" in out
+    # closed form: A is block diagonal, the third state's eigenvalue is A[2, 2] = 0.5 and
+    # its only link to the output is C[0, 2] = 3e-17 (rounding level)
+    assert "unstable hidden mode at 0.5 (unobservable" in out
+    assert junit_case(junit, "valve.json").find("failure") is not None
+    row = table_row(md, "valve.json")
+    assert row[1] == "**changed_internal_stability**" and row[-1].startswith("changed in internal stability")
+
+    # explicit acceptance in the manifest, with a reason that the report prints
+    (repo / "lti-audit.toml").write_text(
+        '[files]\nexclude = ["drafts/**"]\n\n[[accept_hidden_instability]]\n'
+        'model = "valve.json"\nlocation = [0.5, 0.0]\n'
+        'reason = "stabilised by the inner current loop (review VA-17)"\n')
+    code, out, _, _, _ = run_check(capsys, repo, "--against", "HEAD", "--format", "json")
+    assert code == 0
+    data = json.loads(out)
+    (change,) = [c for c in data["changes"] if c["path"] == "valve.json"]
+    assert change["status"] == "unchanged"
+    (problem,) = change["problems"]
+    assert problem["accepted"] and problem["reason"] == "stabilised by the inner current loop (review VA-17)"
+    assert "stabilised by the inner current loop" in change["explanation"]
+
+    # an acceptance of another location does not cover this mode
+    (repo / "lti-audit.toml").write_text(
+        '[[accept_hidden_instability]]\nmodel = "valve.json"\nlocation = [0.7, 0.0]\n'
+        'reason = "a different mode"\n')
+    code, _, _, _, _ = run_check(capsys, repo, "--against", "HEAD")
+    assert code == 1

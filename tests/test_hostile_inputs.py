@@ -44,6 +44,8 @@ import pytest
 
 from audit.cli import main
 
+from .service_cluster import wait_done
+
 NIGHTLY = os.environ.get("LTI_AUDIT_PROFILE") == "nightly"
 #: Seconds one command may take on one hostile input before the case fails.
 TIME_LIMIT = 20.0
@@ -192,7 +194,7 @@ _TF_BAD = [
     {"numerator": [[1.0]], "denominator": [[[1.0, 1.0]]]},               # not a table
     {"numerator": [], "denominator": []},                                # empty tables
 ]
-_ZPK_BAD = [
+_ZEROS_POLES_GAIN_BAD = [
     {"zeros": [[[]]], "poles": [[[[-1.0, 2.0]]]], "gain": [[1.0]]},        # unpaired
     {"zeros": [[[[-1.0]]]], "poles": [[[[-1.0, 0.0]]]], "gain": [[1.0]]},  # not a pair
     {"zeros": [[[[-1.0, 0.0], [-2.0, 0.0]]]], "poles": [[[[-1.0, 0.0]]]], "gain": [[1.0]]},
@@ -215,8 +217,8 @@ def _model_documents() -> list[Case]:
     for k, tf in enumerate(_TF_BAD):
         doc = _set(_set(base, ("state_space",), _DELETE), ("transfer_function",), tf)
         cases.append(_doc_case(f"transfer-function-{k}", doc))
-    for k, zpk in enumerate(_ZPK_BAD):
-        doc = _set(_set(base, ("state_space",), _DELETE), ("zeros_poles_gain",), zpk)
+    for k, zeros_poles_gain in enumerate(_ZEROS_POLES_GAIN_BAD):
+        doc = _set(_set(base, ("state_space",), _DELETE), ("zeros_poles_gain",), zeros_poles_gain)
         cases.append(_doc_case(f"zeros-poles-gain-{k}", doc))
     for key, index in (("a", (0, 0)), ("b", (1, 0)), ("c", (0, 0)), ("d", (0, 0))):
         for value in _EXTREME:
@@ -738,11 +740,26 @@ def test_service_stores_and_shows_hostile_names_safely(service: Any) -> None:
     name = r"$\sqrt{\sqrt{$ <script>alert(1)</script> " + "n" * 150
     body = json.dumps({"models": [good_document(name)], "reference": good_document()}).encode()
     r = _post(service, body)
-    assert r.status_code == 201, r.text
+    assert r.status_code == 202, r.text  # stored as a job; the page is there once done
+    assert wait_done(client, r.json()["id"], headers).json()["status"] == "done"
     page = client.get(f"/audits/{r.json()['id']}/report.html", headers=headers)
     assert page.status_code == 200
     csp = page.headers["content-security-policy"]
-    assert "default-src 'none'" in csp and "script-src" not in csp  # no script may run
+    # no script may run but the report page's own zoom script, named by its SHA-256 hash
+    # (CSP Level 2 hash source): an injected inline script has another hash and is blocked
+    from audit.html_report import zoom_script_csp_source
+
+    assert "default-src 'none'" in csp and "unsafe-inline' " not in csp.split("script-src")[-1]
+    assert csp.split("script-src")[-1].strip() == zoom_script_csp_source()
+    # the browser hashes the script element's text as served: it must be that exact text
+    import base64
+    import hashlib
+    import re
+
+    served = re.findall(r"<script[^>]*>(.*?)</script>", page.text, flags=re.S)
+    assert len(served) == 1
+    digest = base64.b64encode(hashlib.sha256(served[0].encode("utf-8")).digest()).decode()
+    assert f"'sha256-{digest}'" == zoom_script_csp_source()
     assert "<script>alert" not in page.text
 
 
@@ -788,14 +805,14 @@ def test_sqlite_and_postgresql_accept_and_store_the_same() -> None:
                 body = json.dumps({"models": [doc], "reference": good_document()}).encode()
                 with time_guard(TIME_LIMIT):
                     r = client.post("/audits", content=body, headers=headers)
-                if r.status_code == 201:
-                    stored = client.get(f"/audits/{r.json()['id']}", headers=headers).json()
-                    got.append((201, stored["model_names"], stored["report"]["verdict"]))
+                if r.status_code == 202:
+                    stored = wait_done(client, r.json()["id"], headers).json()
+                    got.append((202, stored["model_names"], stored["report"]["verdict"]))
                 else:
                     got.append((r.status_code, r.json()["field"], None))
             answers.append(got)
     assert answers[0] == answers[1]
-    assert [a[0] for a in answers[0]] == [201, 201, 422, 422]
+    assert [a[0] for a in answers[0]] == [202, 202, 422, 422]
     assert answers[0][1][1] == [edge[1]["name"]]  # stored exactly as sent
 
 
@@ -808,7 +825,10 @@ def _service_for(url: str) -> tuple[Any, dict[str, str]]:
     from audit.service.db import open_database
     from audit.service.tokens import create_token
 
-    client = TestClient(create_app(url), raise_server_exceptions=False)
+    from .service_cluster import inproc_scheduler
+
+    client = TestClient(create_app(url, scheduler=inproc_scheduler()),
+                        raise_server_exceptions=False)
     _, sessions = open_database(url)
     with sessions() as s:
         token, _ = create_token(s, holder="equality test", role="team")

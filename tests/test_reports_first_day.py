@@ -167,7 +167,7 @@ def test_compare_html_of_a_mixed_pair_under_a_declared_discretization(tmp_path: 
                                         "transfer_function": {"numerator": [[list(np.ravel(num))]],
                                                               "denominator": [[list(den)]]}})
     page = tmp_path / "mixed.html"
-    method = "tustin"  # the CLI keyword of the bilinear map
+    method = "bilinear"  # the command-line name of the bilinear (Tustin) map
     code = main(["compare", str(cont), str(disc), "--discretization", method, "--format",
                  "html", "-o", str(page)])
     assert code == 0, capsys.readouterr().err
@@ -191,7 +191,7 @@ def test_failed_discretization_claim_suggests_the_matching_prewarp() -> None:
     c = w0 / math.tan(w0 * t / 2)
     cont = realization_from_transfer_function([[[20.0]]], [[[1.0, 20.0]]])
     disc = realization_from_transfer_function([[[20.0, 20.0]]], [[[c + 20.0, 20.0 - c]]], t)
-    check = check_discretization_claim(cont, disc, method="tustin", rtol=1e-6)
+    check = check_discretization_claim(cont, disc, method="bilinear", rtol=1e-6)
     assert check.outcome == "fails"
     found = re.search(r"prewarp frequency ([0-9.]+) rad/s", check.message)
     assert found and float(found.group(1)) == pytest.approx(w0, rel=1e-4)

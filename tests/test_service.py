@@ -2,7 +2,10 @@
 
 Real database: a SQLite file in tmp_path (and PostgreSQL when LTI_AUDIT_TEST_POSTGRES_URL
 points to a reachable server). Requests go through FastAPI's TestClient, and the
-concurrency test through a real uvicorn server on a free local port.
+concurrency test through a real uvicorn server on a free local port. Audits are jobs:
+they run on a Dask cluster shared by these tests (workers are threads of the test
+process, see tests/service_cluster.py); ``Service.submit`` posts, expects 202 and polls
+the audit until it is done. Real scheduler and worker processes: tests/test_jobs_cluster.py.
 """
 
 from __future__ import annotations
@@ -37,6 +40,10 @@ from audit.service.db import open_database
 from audit.service.submission import bandwidth
 from audit.service.tokens import create_token, revoke_token
 
+from .service_cluster import inproc_scheduler, on_postgres, service_database_url, wait_done
+
+sqlite_only = pytest.mark.skipif(on_postgres(), reason="inspects the SQLite file itself")
+
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "fixtures" / "demo"
@@ -58,7 +65,9 @@ class Service:
     """An app on a SQLite file with a team token and two supplier tokens."""
 
     def __init__(self, url: str, **kwargs: Any) -> None:
+        url = service_database_url(url) if url.startswith("sqlite") else url
         self.url = url
+        kwargs.setdefault("scheduler", inproc_scheduler())
         self.app = create_app(url, **kwargs)
         self.client = TestClient(self.app, raise_server_exceptions=False)
         _, self.sessions = open_database(url)
@@ -72,29 +81,40 @@ class Service:
         return {"Authorization": f"Bearer {token}"}
 
     def submit(self, body: Any, token: str | None = None, **kw: Any) -> Any:
-        return self.client.post("/audits", json=body, headers=self.auth(token or self.team), **kw)
+        """POST the body; on 202 wait until the audit is done and return that GET."""
+        r = self.client.post("/audits", json=body, headers=self.auth(token or self.team), **kw)
+        if r.status_code != 202:
+            return r
+        return wait_done(self.client, r.json()["id"], self.auth(token or self.team))
+
+    def close(self) -> None:
+        self.app.state.dispatcher.close()
 
 
 @pytest.fixture
-def svc(tmp_path: Path) -> Service:
-    return Service(f"sqlite:///{tmp_path / 'audits.sqlite3'}")
+def svc(tmp_path: Path) -> Iterator[Service]:
+    s = Service(f"sqlite:///{tmp_path / 'audits.sqlite3'}")
+    yield s
+    s.close()
 
 
 # ------------------------------------------------------------------ database
+@sqlite_only
 def test_sqlite_file_uses_wal_and_migrations_are_idempotent(tmp_path: Path) -> None:
     path = tmp_path / "a.sqlite3"
-    create_app(f"sqlite:///{path}")
-    create_app(f"sqlite:///{path}")  # second start: migrations already applied
+    create_app(f"sqlite:///{path}", start_jobs=False)
+    create_app(f"sqlite:///{path}", start_jobs=False)  # second start: migrations applied
     con = sqlite3.connect(path)
     try:
         assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
-        assert con.execute("SELECT version_num FROM alembic_version").fetchall() == [("0001",)]
+        assert con.execute("SELECT version_num FROM alembic_version").fetchall() == [("0002",)]
         tables = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type='table'")}
     finally:
         con.close()
     assert {"api_tokens", "audits", "audit_documents"} <= tables
 
 
+@sqlite_only
 def test_tokens_are_stored_only_as_sha256(svc: Service, tmp_path: Path) -> None:
     con = sqlite3.connect(tmp_path / "audits.sqlite3")
     try:
@@ -114,8 +134,12 @@ def test_submit_fetch_and_exact_bytes(svc: Service) -> None:
     raw = json.dumps(body, indent=3).encode()  # unusual formatting must survive byte-exact
     r = svc.client.post("/audits", content=raw, headers={**svc.auth(svc.team),
                                                          "Content-Type": "application/json"})
-    assert r.status_code == 201, r.text
+    assert r.status_code == 202, r.text
+    assert r.json()["status"] in ("queued", "running", "done")
+    assert r.headers["Location"] == f"/audits/{r.json()['id']}"
+    r = wait_done(svc.client, r.json()["id"], svc.auth(svc.team))
     rec = r.json()
+    assert rec["status"] == "done" and rec["attempts"] == 1
     assert rec["verdict"] == "equivalent"
     assert rec["claims_outcome"] == "none"
     assert rec["supplier"] == "ACME" and rec["submitted_by"] == "alice (controls team)"
@@ -123,9 +147,9 @@ def test_submit_fetch_and_exact_bytes(svc: Service) -> None:
     assert rec["report"]["comparison"]["report"] == "compare"
     assert rec["tolerances"]["rtol"] == pytest.approx(1e-5, rel=0, abs=0)  # documented default
     assert [d["role"] for d in rec["documents"]] == ["reference", "model"]
-    canon = json.dumps(body["reference"], sort_keys=True, separators=(",", ":"),
+    canonical_bytes = json.dumps(body["reference"], sort_keys=True, separators=(",", ":"),
                        ensure_ascii=False).encode()
-    assert rec["documents"][0]["sha256"] == hashlib.sha256(canon).hexdigest()
+    assert rec["documents"][0]["sha256"] == hashlib.sha256(canonical_bytes).hexdigest()
     got = svc.client.get(f"/audits/{rec['id']}", headers=svc.auth(svc.team))
     assert got.status_code == 200 and got.json()["report"] == rec["report"]
     exact = svc.client.get(f"/audits/{rec['id']}/body", headers=svc.auth(svc.acme))
@@ -136,7 +160,7 @@ def test_submit_fetch_and_exact_bytes(svc: Service) -> None:
 def test_different_model_is_reported_different(svc: Service) -> None:
     r = svc.submit({"models": [demo("conveyor_drive_gain_slip")],
                     "reference": demo("conveyor_drive_reference")})
-    assert r.status_code == 201
+    assert r.status_code == 200
     assert r.json()["verdict"] == "different"
 
 
@@ -158,7 +182,7 @@ def test_rerun_reproduces_with_stored_tolerances(svc: Service) -> None:
 def test_single_model_without_reference_checks_claims_only(svc: Service) -> None:
     r = svc.submit({"models": [demo("conveyor_drive_reference")],
                     "claims": {"stable": True}})
-    assert r.status_code == 201
+    assert r.status_code == 200
     assert r.json()["verdict"] == "not_compared"
     assert r.json()["claims_outcome"] == "hold"
     page = svc.client.get(f"/audits/{r.json()['id']}/report.html", headers=svc.auth(svc.team))
@@ -196,6 +220,26 @@ def test_unstable_hidden_mode_fails_stability_claim(svc: Service) -> None:
     assert rec["claims_outcome"] == "fail"
 
 
+def test_unaccepted_unstable_hidden_mode_fails_the_submission_without_a_claim(svc: Service) -> None:
+    # issue 11: no stability claim at all, the transfer functions agree, and still the
+    # supplier's new unstable hidden mode fails the submission unless accepted
+    body = {"models": [demo("valve_actuator_supplier")],
+            "reference": demo("valve_actuator_reference")}
+    rec = svc.submit(body).json()
+    assert rec["verdict"] == "equivalent"
+    assert rec["claims_outcome"] == "fail"
+    entry = _claims(rec)["internal_stability"]
+    assert entry["outcome"] == "fails" and "unstable hidden mode" in entry["message"]
+    assert [p["accepted"] for p in rec["report"]["comparison"]["problems"]] == [False]
+    body["accept_hidden_instability"] = "supplier's inner loop stabilises it (review VA-17)"
+    rec = svc.submit(body).json()
+    assert rec["claims_outcome"] == "hold"
+    entry = _claims(rec)["internal_stability"]
+    assert entry["outcome"] == "holds" and entry["details"]["reason"].startswith("supplier's inner loop")
+    (problem,) = rec["report"]["comparison"]["problems"]
+    assert problem["accepted"] and problem["reason"] == body["accept_hidden_instability"]
+
+
 def test_bandwidth_closed_forms_and_python_control() -> None:
     from audit.realization import Realization
 
@@ -229,6 +273,19 @@ def test_bandwidth_claim(svc: Service) -> None:
     assert c["bandwidth_rad_s"]["outcome"] == "fails"
 
 
+@pytest.mark.parametrize("name", ["zoh", "tustin", "euler"])
+def test_unknown_discretization_method_is_422_listing_the_accepted_names(svc: Service, name: str) -> None:
+    body = {"models": [demo("conveyor_drive_reference")],
+            "claims": {"discretization": {"method": name}}}
+    r = svc.submit(body)
+    assert r.status_code == 422
+    text = json.dumps(r.json())
+    assert f"got '{name}' but one of these discretization methods was expected" in text
+    for accepted in ("zero-order-hold", "triangle-hold", "bilinear", "matched-pole-zero",
+                     "impulse-invariant"):
+        assert accepted in text
+
+
 def test_discretization_and_sample_period_claims(svc: Service) -> None:
     import scipy.signal
 
@@ -241,18 +298,18 @@ def test_discretization_and_sample_period_claims(svc: Service) -> None:
     ad, bd, cd, dd, _ = scipy.signal.cont2discrete((a, b, c, d), period, method="zoh")
     body = {"reference": ss_doc("plant", a, b, c, d),
             "models": [ss_doc("plant at 1 kHz", ad, bd, cd, dd, period)],
-            "claims": {"sample_period": 1e-3, "discretization": {"method": "zoh"}}}
+            "claims": {"sample_period": 1e-3, "discretization": {"method": "zero-order-hold"}}}
     rec = svc.submit(body).json()
     cl = _claims(rec)
     assert cl["sample_period"]["outcome"] == "holds"
     assert cl["discretization"]["outcome"] == "holds"
-    assert rec["verdict"] == "equivalent"  # the ZOH-discretized reference against the model
-    body["claims"] = {"sample_period": 2e-3, "discretization": {"method": "tustin"}}
+    assert rec["verdict"] == "equivalent"  # the zero-order-hold-discretized reference against the model
+    body["claims"] = {"sample_period": 2e-3, "discretization": {"method": "bilinear"}}
     rec = svc.submit(body).json()
     cl = _claims(rec)
     assert cl["sample_period"]["outcome"] == "fails"
     assert cl["discretization"]["outcome"] == "fails"
-    assert "zoh" in cl["discretization"]["message"]
+    assert "zero-order-hold" in cl["discretization"]["message"]
     # without a discretization claim a continuous reference cannot meet discrete models
     body.pop("claims")
     r = svc.submit(body)
@@ -504,7 +561,7 @@ def test_concurrent_submissions_do_not_lose_or_mix_records(svc: Service) -> None
                     r = client.post("/audits", content=raw,
                                     headers={"Content-Type": "application/json"})
                     with lock:
-                        if r.status_code != 201:
+                        if r.status_code != 202:
                             errors.append(r.text)
                         else:
                             results.append((r.json()["id"], doc["name"],
@@ -515,12 +572,16 @@ def test_concurrent_submissions_do_not_lose_or_mix_records(svc: Service) -> None
             th.start()
         for th in threads:
             th.join()
+        # the jobs finish while the server runs (its shutdown stops the job dispatcher)
+        for audit_id, _, _ in results:
+            assert wait_done(svc.client, audit_id, svc.auth(svc.team)).json()["status"] == "done"
     assert errors == []
     assert len({r[0] for r in results}) == n_threads * per_thread
     listed = svc.client.get("/audits?limit=500", headers=svc.auth(svc.team)).json()
     assert listed["total"] == n_threads * per_thread
     for audit_id, name, sha in results:
-        rec = svc.client.get(f"/audits/{audit_id}", headers=svc.auth(svc.team)).json()
+        rec = wait_done(svc.client, audit_id, svc.auth(svc.team)).json()
+        assert rec["status"] == "done" and rec["verdict"] == "not_compared"
         assert rec["model_names"] == [name]  # not mixed with another submission
         assert rec["body_sha256"] == sha
         assert rec["supplier"] == "S" + name.split()[1]
@@ -528,6 +589,7 @@ def test_concurrent_submissions_do_not_lose_or_mix_records(svc: Service) -> None
 
 
 # ------------------------------------------------------------------ CLI
+@sqlite_only
 def test_token_command_prints_once_and_lists_without_token(
         tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     from audit.cli import main
@@ -542,7 +604,7 @@ def test_token_command_prints_once_and_lists_without_token(
     assert main(["token", "--database", url, "revoke", "1"]) == 0
     assert main(["token", "--database", url, "revoke", "7"]) == 2
     assert "no token with id 7" in capsys.readouterr().err
-    client = TestClient(create_app(url))
+    client = TestClient(create_app(url, start_jobs=False))
     assert client.get("/audits", headers={"Authorization": f"Bearer {token}"}).status_code == 401
 
 

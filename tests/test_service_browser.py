@@ -30,12 +30,13 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
     from audit.service.db import open_database
     from audit.service.tokens import create_token
 
+    from .service_cluster import inproc_scheduler, wait_done
     from .test_service import running_server
 
     url = f"sqlite:///{tmp_path / 'browser.sqlite3'}"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        app = create_app(url)
+        app = create_app(url, scheduler=inproc_scheduler())
     _, sessions = open_database(url)
     with sessions() as s:
         token, _ = create_token(s, holder="browser test", role="team")
@@ -46,7 +47,9 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
         with httpx.Client(base_url=base, headers={"Authorization": f"Bearer {token}"},
                           timeout=60) as client:
             rec = client.post("/audits", json=body)
-            assert rec.status_code == 201, rec.text
+            assert rec.status_code == 202, rec.text
+            rec = wait_done(client, rec.json()["id"], {})
+            assert rec.json()["status"] == "done", rec.text
             link = client.post(f"/audits/{rec.json()['id']}/view-link").json()["url"]
         profile = tempfile.mkdtemp(prefix="lti-audit-chromium-")
         try:
@@ -58,6 +61,7 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
                 capture_output=True, text=True, timeout=90)
         finally:
             shutil.rmtree(profile, ignore_errors=True)
+            app.state.dispatcher.close()
     dom = proc.stdout
     assert proc.returncode == 0, proc.stderr[-2000:]
     from audit.html_report import PLOT_IDS

@@ -21,6 +21,8 @@ from audit.service import create_app  # noqa: E402
 from audit.service.db import open_database  # noqa: E402
 from audit.service.tokens import create_token  # noqa: E402
 
+from .service_cluster import inproc_scheduler  # noqa: E402
+
 # Default run: few examples, derandomized (the same cases every run, so CI is stable);
 # a campaign with LTI_AUDIT_SCHEMATHESIS_EXAMPLES=500 draws fresh random cases.
 _CAMPAIGN = os.environ.get("LTI_AUDIT_SCHEMATHESIS_EXAMPLES")
@@ -29,7 +31,7 @@ EXAMPLES = int(_CAMPAIGN or "8")
 
 def _app_and_token(tmp: Path) -> tuple[object, str]:
     url = f"sqlite:///{tmp / 'schemathesis.sqlite3'}"
-    app = create_app(url)
+    app = create_app(url, scheduler=inproc_scheduler())
     _, sessions = open_database(url)
     with sessions() as s:
         token, _ = create_token(s, holder="schemathesis", role="team")

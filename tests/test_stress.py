@@ -169,3 +169,34 @@ def test_third_party_pipeline_matches_scipy_directly() -> None:
     # same polynomial coefficients up to rounding (rtol 1e-9, common practice for order 3)
     np.testing.assert_allclose(den, den0, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(num, num0, rtol=1e-9, atol=1e-12)
+
+
+def test_stress_out_must_be_empty_or_replaced_explicitly(tmp_path: Path, capsys) -> None:
+    argv = ["stress", "--budget", "2", "--seed", "1", "--workers", "1", "--max-order", "2",
+            "--pipeline", "verdict: different by construction"]
+    out = tmp_path / "report"
+    assert main([*argv, "--out", str(out)]) == 0
+    err = capsys.readouterr().err
+    # the progress shows from the start (0 of 2 done), then as cases finish
+    assert "stress: [--------------------] 0/2 systems" in err and "2/2 systems" in err
+    stale = out / "counterexamples" / "stale-case"
+    stale.mkdir(parents=True)
+    assert main([*argv, "--out", str(out)]) == 2
+    assert "is not empty" in capsys.readouterr().err and stale.is_dir()  # nothing deleted
+    assert main([*argv, "--out", str(out), "--replace"]) == 0
+    assert not stale.exists() and (out / "campaign.json").is_file()
+    other = tmp_path / "notes"
+    other.mkdir()
+    (other / "mine.txt").write_text("keep me")
+    assert main([*argv, "--out", str(other), "--replace"]) == 2
+    assert "holds no campaign.json" in capsys.readouterr().err
+    assert (other / "mine.txt").read_text() == "keep me"
+
+
+def test_campaign_reports_carry_the_caution(tmp_path: Path) -> None:
+    from audit.report import CAUTION
+
+    result = stress.run_campaign(budget=1, seed=0, settings=_settings(FAST[2]))
+    paths = stress.write_reports(result, tmp_path / "c")
+    assert json.loads(paths["json"].read_text())["caution"] == CAUTION
+    assert CAUTION in paths["markdown"].read_text()

@@ -13,7 +13,6 @@ arguments, shows progress on stderr and writes files.
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 import time
 from pathlib import Path
@@ -54,9 +53,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                        "depends on machine speed; --budget is exactly reproducible)")
     parser.add_argument("--seed", type=whole_number(0), default=0, help="campaign seed (default 0)")
     parser.add_argument("--workers", type=whole_number(1), default=None, metavar="K",
-                        help="parallel worker processes (default: number of CPUs)")
+                        help="worker processes of the local Dask cluster (default: number of "
+                        "CPUs; 1 runs in this process)")
+    parser.add_argument("--scheduler", metavar="tcp://HOST:PORT", default=None,
+                        help="submit the cases to this existing Dask scheduler instead of "
+                        "starting local workers (the report is the same for the same seed)")
     parser.add_argument("--out", default="stress-report", metavar="DIR",
-                        help="output directory (default ./stress-report)")
+                        help="output directory; must be absent or empty (default ./stress-report)")
+    parser.add_argument("--replace", action="store_true",
+                        help="delete a previous campaign's report in --out first (only a folder "
+                        "holding a campaign.json is deleted)")
     parser.add_argument("--shard", type=_shard, default=(0, 1), metavar="i/N",
                         help="run only the systems with index %% N == i (spread a campaign over "
                         "N machines; merge with --merge)")
@@ -115,15 +121,20 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out)
     from ..safe_output import new_output_directory
 
-    new_output_directory(out)  # a fresh or empty folder: campaigns never mix
+    if args.replace:
+        problem = _remove_previous_campaign(out)
+        if problem:
+            sys.stderr.write(f"lti-audit: error: --out: {problem}\n")
+            return 2
+    new_output_directory(out, flag="--replace")  # a fresh or empty folder: campaigns never mix
     if args.merge:
         reports = []
         for d in args.merge:
             path = Path(d) / "campaign.json"
-            if not path.is_file():
+            if not path.exists() and not path.is_symlink():
                 sys.stderr.write(f"lti-audit: error: --merge: {path} does not exist\n")
                 return 2
-            reports.append(json.loads(path.read_text(encoding="utf-8")))
+            reports.append(stress.read_campaign_report(path))
         merged: Any = stress.merge_campaigns(reports)
         paths = stress.write_reports(merged, out)
         sys.stderr.write(f"stress: merged {len(reports)} shard(s) into {paths['markdown']}\n")
@@ -138,7 +149,8 @@ def run(args: argparse.Namespace) -> int:
     workers = args.workers or stress.default_workers()
     result = stress.run_campaign(budget=budget, minutes=args.minutes, seed=args.seed,
                                  workers=workers, shard=args.shard, settings=settings,
-                                 progress=_Progress(args.quiet, args.minutes))
+                                 progress=_Progress(args.quiet, args.minutes),
+                                 scheduler=args.scheduler)
     try:
         paths = stress.write_reports(result, out)
     except FileExistsError as exc:
@@ -149,6 +161,23 @@ def run(args: argparse.Namespace) -> int:
         sys.stderr.write(f"stress: {report['completed_cases']} systems, {report['audits']} audits in "
                          f"{report['seconds']:.1f} s; report {paths['markdown']}\n")
     return 1 if _failures(report) else 0
+
+
+def _remove_previous_campaign(out: Path) -> str | None:
+    """``--replace``: delete ``out`` if it holds a previous campaign (a ``campaign.json``).
+
+    Any other non-empty folder is refused (returns the problem); links and files are left
+    to the output rule (:func:`audit.safe_output.new_output_directory`) to refuse.
+    """
+    import shutil
+
+    if out.is_symlink() or not out.is_dir() or not any(out.iterdir()):
+        return None
+    if not (out / "campaign.json").is_file():
+        return (f"{out} is not empty and holds no campaign.json: --replace deletes only a "
+                "previous campaign's report folder")
+    shutil.rmtree(out)
+    return None
 
 
 def _failures(report: dict[str, Any]) -> int:

@@ -3,7 +3,9 @@
 ``create_app(database_url, *, max_body_bytes=..., max_order=...)`` builds the FastAPI
 application (see :mod:`audit.service.app` for the endpoints); tokens are managed with
 :mod:`audit.service.tokens` (``lti-audit token ...``); the database layer and its Alembic
-migrations live in :mod:`audit.service.db` and ``audit/service/migrations``.
+migrations live in :mod:`audit.service.db` and ``audit/service/migrations``; submissions are
+checked by :mod:`audit.service.intake` and audited as jobs on Dask workers by
+:mod:`audit.service.jobs`.
 FastAPI, SQLAlchemy and Alembic are imported only when these modules are used.
 """
 

@@ -9,9 +9,12 @@ the Alembic migrations in ``audit/service/migrations``, applied programmatically
     name (suppliers only), the SHA-256 of the token (never the token), a short display
     prefix, creation and revocation times.
 ``audits``
-    one row per stored audit: creation time, supplier, submitting token, verdict,
-    reference and model names, the SHA-256 and the exact bytes of the request body,
-    the lti-audit version, the tolerances used and the full report (JSON).
+    one row per stored audit (a job): creation time, supplier, submitting token, job
+    status (``queued``, ``running``, ``done``, ``failed``), attempts, start and finish
+    times, failure reason, time budget, the client's ``Idempotency-Key`` (unique per
+    token), verdict, reference and model names, the SHA-256 and the exact bytes of the
+    request body, the lti-audit version, the tolerances used and the full report (JSON;
+    empty until the job is done).
 ``audit_documents``
     one row per model document of an audit: its role (``reference`` or ``model``),
     position, name, and the SHA-256 of its canonical JSON text (sorted keys, no spaces,
@@ -19,8 +22,10 @@ the Alembic migrations in ``audit/service/migrations``, applied programmatically
 
 SQLite databases are switched to write-ahead logging (WAL; "Write-Ahead Logging",
 sqlite.org) with a busy timeout, so that readers never block the single writer and
-concurrent submissions queue instead of failing. Every audit is written in one
-transaction after its report is computed.
+concurrent submissions queue instead of failing. A submission is written in one
+transaction (audit row and document rows, status ``queued``); the worker that runs the
+job writes the report and the final status in one more transaction. The connection pool
+is sized by :func:`open_database`'s ``pool_size``/``max_overflow``/``pool_timeout``.
 """
 
 from __future__ import annotations
@@ -37,6 +42,7 @@ from sqlalchemy import (
     LargeBinary,
     String,
     Text,
+    UniqueConstraint,
     create_engine,
     event,
 )
@@ -46,6 +52,7 @@ from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship,
 from ..errors import AuditError
 
 __all__ = [
+    "ACTIVE_STATES",
     "ApiToken",
     "Audit",
     "AuditDocument",
@@ -58,6 +65,12 @@ __all__ = [
 
 SQLITE_BUSY_TIMEOUT_MS = 30_000
 """How long a SQLite writer waits for the lock before giving up (milliseconds)."""
+
+
+ACTIVE_STATES = ("queued", "running")
+"""Job states of an audit in flight (counted by the queue bound and the token quota)."""
+
+JOB_STATES = ("queued", "running", "done", "failed")
 
 
 class DatabaseError(AuditError):
@@ -98,16 +111,26 @@ class Audit(Base):
     created_at: Mapped[dt.datetime] = mapped_column(DateTime, index=True)
     supplier: Mapped[str | None] = mapped_column(String(200), nullable=True, index=True)
     submitted_by: Mapped[int | None] = mapped_column(ForeignKey("api_tokens.id"), nullable=True)
-    verdict: Mapped[str] = mapped_column(String(20), index=True)
-    claims_outcome: Mapped[str] = mapped_column(String(20))
+    status: Mapped[str] = mapped_column(String(12), index=True, default="queued")
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    started_at: Mapped[dt.datetime | None] = mapped_column(DateTime, nullable=True)
+    finished_at: Mapped[dt.datetime | None] = mapped_column(DateTime, nullable=True)
+    failure: Mapped[str | None] = mapped_column(Text, nullable=True)
+    time_budget_seconds: Mapped[float | None] = mapped_column(nullable=True)
+    idempotency_key: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    verdict: Mapped[str | None] = mapped_column(String(20), index=True, nullable=True)
+    claims_outcome: Mapped[str | None] = mapped_column(String(20), nullable=True)
     reference_name: Mapped[str | None] = mapped_column(String(500), nullable=True)
     model_names: Mapped[Any] = mapped_column(JSON)
     body: Mapped[bytes] = mapped_column(LargeBinary)
     body_sha256: Mapped[str] = mapped_column(String(64), index=True)
     lti_audit_version: Mapped[str] = mapped_column(String(50))
     tolerances: Mapped[Any] = mapped_column(JSON)
-    report: Mapped[Any] = mapped_column(JSON)
-    seconds: Mapped[float] = mapped_column()
+    report: Mapped[Any] = mapped_column(JSON, nullable=True)
+    seconds: Mapped[float | None] = mapped_column(nullable=True)
+
+    __table_args__ = (UniqueConstraint("submitted_by", "idempotency_key",
+                                       name="uq_audits_token_idempotency_key"),)
 
     documents: Mapped[list["AuditDocument"]] = relationship(
         back_populates="audit", order_by="AuditDocument.position", cascade="all, delete-orphan")
@@ -147,7 +170,9 @@ def migrate(engine: Engine) -> None:
         command.upgrade(cfg, "head")
 
 
-def open_database(database_url: str, *, migrate_schema: bool = True) -> tuple[Engine, sessionmaker[Any]]:
+def open_database(database_url: str, *, migrate_schema: bool = True, pool_size: int = 10,
+                  max_overflow: int = 10, pool_timeout: float = 10.0,
+                  ) -> tuple[Engine, sessionmaker[Any]]:
     """Create the engine for ``database_url``, apply migrations, return (engine, sessions).
 
     Parameters
@@ -157,6 +182,11 @@ def open_database(database_url: str, *, migrate_schema: bool = True) -> tuple[En
         ``postgresql+psycopg://user@host/db``.
     migrate_schema : bool, keyword-only
         Apply the Alembic migrations (default True).
+    pool_size, max_overflow : int, keyword-only
+        Connections kept open, and opened beyond them under load (defaults 10 and 10).
+    pool_timeout : float, keyword-only
+        Seconds a request waits for a free connection before
+        ``sqlalchemy.exc.TimeoutError`` (the service answers 503 with Retry-After).
 
     Returns
     -------
@@ -168,7 +198,9 @@ def open_database(database_url: str, *, migrate_schema: bool = True) -> tuple[En
         The URL is malformed, its driver is missing, or the migration failed.
     """
     try:
-        engine = create_engine(database_url, future=True, pool_pre_ping=True)
+        engine = create_engine(database_url, future=True, pool_pre_ping=True,
+                               pool_size=pool_size, max_overflow=max_overflow,
+                               pool_timeout=pool_timeout)
     except Exception as exc:  # noqa: BLE001 - translate at the edge
         raise DatabaseError(f"database URL {database_url!r} cannot be used: {exc}") from exc
     if engine.dialect.name == "sqlite":

@@ -51,12 +51,13 @@ import hashlib
 import json
 import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
+from ..discretization_methods import DiscretizationMethod, accepted_methods_text, discretization_method
 from ..errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from ..realization import SAMPLE_PERIOD_RTOL, Realization
 
@@ -92,7 +93,6 @@ FORM_RTOL = 1e-9
 BANDWIDTH_BISECTION_RTOL = 1e-12
 MAX_MODELS = 16
 
-_Method = Literal["zoh", "foh", "tustin", "matched", "impulse"]
 
 
 class _Strict(BaseModel):
@@ -102,9 +102,18 @@ class _Strict(BaseModel):
 class DiscretizationClaim(_Strict):
     """"The submitted discrete models are the ``method`` discretization of the reference"."""
 
-    method: _Method = Field(description="Discretization method")
+    method: DiscretizationMethod = Field(
+        description="Discretization method: " + accepted_methods_text())
     prewarp_frequency: float | None = Field(
-        default=None, gt=0, description="Tustin prewarping frequency in rad/s (optional)")
+        default=None, gt=0, description="Prewarp frequency in rad/s of the bilinear method (optional)")
+
+    @field_validator("method", mode="before")
+    @classmethod
+    def _known_method(cls, value: Any) -> Any:
+        try:
+            return discretization_method(value, field="method")
+        except InvalidModelError as exc:  # pydantic reports a ValueError as a 422 detail
+            raise ValueError(str(exc).removeprefix("method: ")) from None
 
 
 class Claims(_Strict):
@@ -142,6 +151,19 @@ class Submission(_Strict):
     claim_rtol: float | None = Field(default=None, gt=0, lt=1,
                                      description=f"Tolerance of numeric claims (default {DEFAULT_CLAIM_RTOL:g})")
     escalation_seconds: float | None = Field(default=None, ge=0, le=20)
+    accept_hidden_instability: str | None = Field(
+        default=None, min_length=1, max_length=2000,
+        description="Reason for accepting knowingly an unstable or marginal hidden or nearly "
+        "hidden mode that the reference lacks; without it such a mode fails the submission")
+    atol: float | None = Field(default=None, ge=0, description="Absolute tolerance on the "
+                               "difference, in the models' gain units (default 0: none)")
+    band_rad_s: list[float] | None = Field(default=None, min_length=2, max_length=2,
+                                           description="Band of interest [low, high] in rad/s: only "
+                                           "the difference inside it decides")
+    channel_rtol: list[str] = Field(default_factory=list, max_length=400,
+                                    description="Per-channel relative tolerances 'OUT:IN=R' or "
+                                    "'OUT=R' (0-based index, signal name of the first compared "
+                                    "model, or *)")
 
 
 class Tolerances(_Strict):
@@ -153,6 +175,9 @@ class Tolerances(_Strict):
     claim_rtol: float
     form_rtol: float = FORM_RTOL
     sample_period_rtol: float = SAMPLE_PERIOD_RTOL
+    atol: float = 0.0
+    band_rad_s: list[float] | None = None
+    channel_rtol: list[str] = Field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -292,7 +317,30 @@ def tolerances_for(sub: Submission) -> Tolerances:
         escalation_seconds=(DEFAULT_ESCALATION_SECONDS if sub.escalation_seconds is None
                             else sub.escalation_seconds),
         claim_rtol=DEFAULT_CLAIM_RTOL if sub.claim_rtol is None else sub.claim_rtol,
+        atol=0.0 if sub.atol is None else sub.atol,
+        band_rad_s=sub.band_rad_s,
+        channel_rtol=list(sub.channel_rtol),
     )
+
+
+def _stated_tolerances(ps: ParsedSubmission, tol: Tolerances, first: Realization) -> dict[str, Any]:
+    """atol, band and channel tolerances as Options fields (names from the first compared
+    model's document); bad values raise InvalidModelError (422)."""
+    from ..band_peak import check_band
+    from ..tolerances import parse_channel_tolerance, resolve_channel_tolerances
+
+    out: dict[str, Any] = {"atol": tol.atol}
+    if tol.band_rad_s is not None:
+        out["band"] = check_band(tol.band_rad_s, field="band_rad_s")
+    if tol.channel_rtol:
+        raw = ps.submission.reference if ps.submission.reference is not None else ps.submission.models[0]
+        names = {k: [str(s.get("name")) for s in raw.get(k) or [] if isinstance(s, dict)] or None
+                 for k in ("inputs", "outputs")}
+        out["channel_rtol"] = resolve_channel_tolerances(
+            [parse_channel_tolerance(t, field="channel_rtol") for t in tol.channel_rtol],
+            n_outputs=first.n_outputs, n_inputs=first.n_inputs, output_names=names["outputs"],
+            input_names=names["inputs"], field="channel_rtol")
+    return out
 
 
 # ------------------------------------------------------------------ bandwidth
@@ -506,6 +554,22 @@ def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]
     return out
 
 
+def _internal_stability_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]:
+    """One failing entry per unstable / marginal hidden or nearly hidden mode of a submitted
+    model that the reference lacks (every such mode without a reference), holding when the
+    submission accepts it with a reason (:mod:`audit.internal_stability`)."""
+    from ..internal_stability import ModelModes, hidden_mode_problems, model_modes
+
+    ref = (model_modes(ps.reference, label="the reference", rank_tol=tol.rank_tol)
+           if ps.reference is not None else ModelModes("", (), {}, 0, True, None))
+    mods = [model_modes(r, label=r.name, rank_tol=tol.rank_tol) for r in ps.models]
+    problems = hidden_mode_problems(ref, mods, accepted_reason=ps.submission.accept_hidden_instability)
+    return [_claim(p["model"], "internal_stability", "no new unstable or marginal hidden mode",
+                   p["location"], None, "holds" if p["accepted"] else "fails",
+                   p["message"] + (f"; accepted: {p['reason']}" if p["accepted"] else ""), p)
+            for p in problems]
+
+
 def _claims_outcome(claims: list[dict[str, Any]]) -> str:
     if not claims:
         return "none"
@@ -574,13 +638,19 @@ def compared_models(ps: ParsedSubmission) -> tuple[list[Realization], list[str]]
     return unique, sources
 
 
-def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
+def run_audit(ps: ParsedSubmission, tol: Tolerances, *,
+              time_budget: float | None = None) -> AuditOutcome:
     """Compare the models and check the claims of a parsed submission.
 
     Parameters
     ----------
     ps : ParsedSubmission
     tol : Tolerances
+    time_budget : float or None, keyword-only
+        Seconds this audit may take (``None``: no limit). The budget is checked before
+        each model pair and before the claims, and each pair's extended-precision budget
+        is capped by the time left; once it is spent, the remaining pairs are not
+        compared, the verdict is ``inconclusive`` and ``report["time_budget"]`` says why.
 
     Returns
     -------
@@ -601,25 +671,56 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
     """
     from ..evidence import to_jsonable
     from ..report import CAUTION, compare_report, package_version
-    from ..verdict import Options, compare_models, overall_verdict
+    from ..verdict import Options, compare_pair, overall_verdict
 
     start = time.perf_counter()
+    deadline = None if time_budget is None else start + time_budget
+    budget_note: dict[str, Any] | None = None if time_budget is None else {
+        "seconds": time_budget, "exceeded": False, "reason": None}
+
+    def spent(what: str) -> bool:
+        if deadline is None or time.perf_counter() < deadline or budget_note is None:
+            return False
+        if not budget_note["exceeded"]:
+            budget_note.update(exceeded=True, reason=(
+                f"time budget of {time_budget:g} s spent before {what}; the audit is "
+                "inconclusive (resubmit with fewer or smaller models, or ask the operator "
+                "for a larger job budget)"))
+        return True
+
     compared, sources = compared_models(ps)
     compare_data = None
     verdict = "not_compared"
     if compared:
         options = Options(rtol=tol.rtol, escalate=tol.escalation_seconds > 0,
-                          escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol)
+                          escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol,
+                          **_stated_tolerances(ps, tol, compared[0]))
         t0 = time.perf_counter()
-        pairs = compare_models(compared, options=options)
-        verdict = overall_verdict(pairs)
-        compare_data = compare_report(compared, sources, pairs, options, verdict,
-                                      time.perf_counter() - t0)
-    claims = _check_claims(ps, tol)
+        pairs = []
+        for k, other in enumerate(compared[1:], start=1):
+            if spent(f"comparing {sources[k]} ({k} of {len(compared) - 1} comparisons)"):
+                break
+            opts = options
+            if deadline is not None and options.escalate:
+                left = max(0.0, deadline - time.perf_counter())
+                opts = replace(options, escalation_seconds=min(options.escalation_seconds, left))
+            pairs.append(compare_pair(compared[0], other, options=opts))
+        done = compared[:len(pairs) + 1]
+        verdict = overall_verdict(pairs) if pairs else "inconclusive"
+        if len(pairs) < len(compared) - 1 and verdict != "different":
+            verdict = "inconclusive"
+        if pairs:
+            compare_data = compare_report(done, sources[:len(done)], pairs, options, verdict,
+                                          time.perf_counter() - t0,
+                                          accepted_reason=ps.submission.accept_hidden_instability)
+        compared = done
+    claims = [] if spent("checking the claims") else (_check_claims(ps, tol) + _internal_stability_claims(ps, tol))
     claims_outcome = _claims_outcome(claims)
     failing = [c for c in claims if c["outcome"] != "holds"]
     summary = (compare_data["summary"] if compare_data else
                "No comparison: one model and no reference.")
+    if budget_note is not None and budget_note["exceeded"]:
+        summary = f"Inconclusive: {budget_note['reason']}. " + (summary if compare_data else "")
     if claims:
         summary += (f" Claims: {len(claims) - len(failing)} of {len(claims)} hold"
                     + (f"; first problem: {failing[0]['model']}: {failing[0]['claim']}: "
@@ -637,6 +738,7 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances) -> AuditOutcome:
         "comparison": compare_data,
         "claims": claims,
         "seconds": round(seconds, 6),
+        "time_budget": budget_note,
         "caution": CAUTION,
     })
     return AuditOutcome(verdict, claims_outcome, report, compare_data, tuple(compared),
