@@ -112,7 +112,7 @@ def check_documents(sub: Any) -> list[dict[str, Any]]:
         a continuous reference and discrete models.
     """
     from ..loading import parse_model_document
-    from .submission import canonical_sha256
+    from .submission import canonical_sha256, check_claim_shapes, stated_tolerance_options
 
     parsed: list[tuple[str, Any]] = []
     entries: list[dict[str, Any]] = []
@@ -127,42 +127,11 @@ def check_documents(sub: Any) -> list[dict[str, Any]]:
         entries.append({"role": "model", "position": i, "name": doc.name,
                         "sha256": canonical_sha256(raw)})
     models = [d for src, d in parsed if src != "reference"]
-    dc = sub.claims.dc_gain
-    if dc is not None:
-        shape = (1, 1) if isinstance(dc, float) else (len(dc), len(dc[0]) if dc else 0)
-        if isinstance(dc, list) and any(len(row) != shape[1] for row in dc):
-            raise InvalidModelError("claims.dc_gain: rows have different lengths",
-                                    field="claims.dc_gain")
-        want = (models[0].n_outputs, models[0].n_inputs)
-        if shape != want:
-            raise InvalidModelError(
-                f"claims.dc_gain: has shape {shape[0]}x{shape[1]} but the models have "
-                f"{want[0]} output(s) x {want[1]} input(s) (a number is accepted for "
-                "one input and one output)", field="claims.dc_gain")
-    if sub.claims.poles is not None and any(len(p) != 2 for p in sub.claims.poles):
-        raise InvalidModelError("claims.poles: every pole must be an [re, im] pair",
-                                field="claims.poles")
+    check_claim_shapes(sub.claims, models[0].n_outputs, models[0].n_inputs)
     if len(parsed) >= 2:
         _check_comparable(parsed, sub.claims.discretization is not None)
-    _check_stated_tolerances(sub, parsed[0][1])
+    stated_tolerance_options(sub, sub, parsed[0][1].n_outputs, parsed[0][1].n_inputs)
     return entries
-
-
-def _check_stated_tolerances(sub: Any, first: Any) -> None:
-    """Refuse a bad band or channel tolerance at submission (422), not later in the job:
-    channels are resolved against the first document's counts and signal names."""
-    from ..band_peak import check_band
-    from ..tolerances import parse_channel_tolerance, resolve_channel_tolerances
-
-    if sub.band_rad_s is not None:
-        check_band(sub.band_rad_s, field="band_rad_s")
-    if sub.channel_rtol:
-        names = {k: [s.name for s in getattr(first, k, None) or []] or None
-                 for k in ("inputs", "outputs")}
-        resolve_channel_tolerances(
-            [parse_channel_tolerance(t, field="channel_rtol") for t in sub.channel_rtol],
-            n_outputs=first.n_outputs, n_inputs=first.n_inputs, output_names=names["outputs"],
-            input_names=names["inputs"], field="channel_rtol")
 
 
 def _same_period(a: float | None, b: float | None) -> bool:

@@ -284,21 +284,7 @@ def parse_submission(body: Any, *, max_order: int) -> ParsedSubmission:
         r, doc = _realization(d, f"models[{i}]", max_order)
         models.append(r)
         docs.append(_doc_entry("model", i, r, doc, d))
-    dc = sub.claims.dc_gain
-    if dc is not None:
-        shape = (1, 1) if isinstance(dc, float) else (len(dc), len(dc[0]) if dc else 0)
-        if isinstance(dc, list) and any(len(row) != shape[1] for row in dc):
-            raise InvalidModelError("claims.dc_gain: rows have different lengths",
-                                    field="claims.dc_gain")
-        want = (models[0].n_outputs, models[0].n_inputs)
-        if shape != want:
-            raise InvalidModelError(
-                f"claims.dc_gain: has shape {shape[0]}x{shape[1]} but the models have "
-                f"{want[0]} output(s) x {want[1]} input(s) (a number is accepted for "
-                "one input and one output)", field="claims.dc_gain")
-    if sub.claims.poles is not None and any(len(p) != 2 for p in sub.claims.poles):
-        raise InvalidModelError("claims.poles: every pole must be an [re, im] pair",
-                                field="claims.poles")
+    check_claim_shapes(sub.claims, models[0].n_outputs, models[0].n_inputs)
     return ParsedSubmission(sub, reference, tuple(models), tuple(docs))
 
 
@@ -323,22 +309,44 @@ def tolerances_for(sub: Submission) -> Tolerances:
     )
 
 
-def _stated_tolerances(ps: ParsedSubmission, tol: Tolerances, first: Realization) -> dict[str, Any]:
-    """atol, band and channel tolerances as Options fields (names from the first compared
-    model's document); bad values raise InvalidModelError (422)."""
+def check_claim_shapes(claims: Any, n_outputs: int, n_inputs: int) -> None:
+    """Refuse a claimed DC gain of the wrong shape or poles that are not [re, im] pairs
+    (InvalidModelError, 422)."""
+    dc = claims.dc_gain
+    if dc is not None:
+        shape = (1, 1) if isinstance(dc, float) else (len(dc), len(dc[0]) if dc else 0)
+        if isinstance(dc, list) and any(len(row) != shape[1] for row in dc):
+            raise InvalidModelError("claims.dc_gain: rows have different lengths",
+                                    field="claims.dc_gain")
+        if shape != (n_outputs, n_inputs):
+            raise InvalidModelError(
+                f"claims.dc_gain: has shape {shape[0]}x{shape[1]} but the models have "
+                f"{n_outputs} output(s) x {n_inputs} input(s) (a number is accepted for "
+                "one input and one output)", field="claims.dc_gain")
+    if claims.poles is not None and any(len(p) != 2 for p in claims.poles):
+        raise InvalidModelError("claims.poles: every pole must be an [re, im] pair",
+                                field="claims.poles")
+
+
+def stated_tolerance_options(values: Submission | Tolerances, sub: Submission, n_outputs: int,
+                             n_inputs: int) -> dict[str, Any]:
+    """atol, band and channel tolerances (read from ``values``: the submission at intake,
+    the audit's stored tolerances in the job) as Options fields; channel names are those of
+    the first compared document of ``sub`` (the reference, else models[0]). Bad values
+    raise InvalidModelError (422)."""
     from ..band_peak import check_band
     from ..tolerances import parse_channel_tolerance, resolve_channel_tolerances
 
-    out: dict[str, Any] = {"atol": tol.atol}
-    if tol.band_rad_s is not None:
-        out["band"] = check_band(tol.band_rad_s, field="band_rad_s")
-    if tol.channel_rtol:
-        raw = ps.submission.reference if ps.submission.reference is not None else ps.submission.models[0]
+    out: dict[str, Any] = {"atol": 0.0 if values.atol is None else values.atol}
+    if values.band_rad_s is not None:
+        out["band"] = check_band(values.band_rad_s, field="band_rad_s")
+    if values.channel_rtol:
+        raw = sub.reference if sub.reference is not None else sub.models[0]
         names = {k: [str(s.get("name")) for s in raw.get(k) or [] if isinstance(s, dict)] or None
                  for k in ("inputs", "outputs")}
         out["channel_rtol"] = resolve_channel_tolerances(
-            [parse_channel_tolerance(t, field="channel_rtol") for t in tol.channel_rtol],
-            n_outputs=first.n_outputs, n_inputs=first.n_inputs, output_names=names["outputs"],
+            [parse_channel_tolerance(t, field="channel_rtol") for t in values.channel_rtol],
+            n_outputs=n_outputs, n_inputs=n_inputs, output_names=names["outputs"],
             input_names=names["inputs"], field="channel_rtol")
     return out
 
@@ -694,7 +702,8 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances, *,
     if compared:
         options = Options(rtol=tol.rtol, escalate=tol.escalation_seconds > 0,
                           escalation_seconds=tol.escalation_seconds, rank_tol=tol.rank_tol,
-                          **_stated_tolerances(ps, tol, compared[0]))
+                          **stated_tolerance_options(tol, ps.submission, compared[0].n_outputs,
+                                                   compared[0].n_inputs))
         t0 = time.perf_counter()
         pairs = []
         for k, other in enumerate(compared[1:], start=1):
