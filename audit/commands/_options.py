@@ -44,3 +44,14 @@ def whole_number(minimum: int):  # type: ignore[no-untyped-def]
         return value
 
     return parse
+
+
+def positive_number(text: str) -> float:
+    """A number strictly greater than 0 (a time budget, a rate)."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text}")
+    return value

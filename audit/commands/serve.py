@@ -11,28 +11,10 @@ from __future__ import annotations
 import argparse
 import os
 
+from ._options import positive_number, whole_number
+
 NAME = "serve"
 HELP = "run the audit HTTP service with stored audit history"
-
-
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, got {value}")
-    return value
-
-
-def _positive_float(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text}")
-    return value
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -43,30 +25,30 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--database", metavar="URL", default=None,
                         help="SQLAlchemy database URL (default: sqlite file lti-audit.sqlite3 "
                              "in the current directory)")
-    parser.add_argument("--max-body-bytes", type=_positive_int, default=None,
+    parser.add_argument("--max-body-bytes", type=whole_number(1), default=None,
                         help="largest request body accepted (default 2 MiB)")
-    parser.add_argument("--max-order", type=_positive_int, default=None,
+    parser.add_argument("--max-order", type=whole_number(1), default=None,
                         help="largest model order accepted, counted on the document before "
                              "conversion (default 200)")
-    parser.add_argument("--max-channels", type=_positive_int, default=None,
+    parser.add_argument("--max-channels", type=whole_number(1), default=None,
                         help="largest number of inputs or outputs of a model (default 64)")
     jobs = parser.add_argument_group("audit jobs (Dask distributed)")
     jobs.add_argument("--scheduler", metavar="tcp://HOST:PORT",
                       default=os.environ.get("LTI_AUDIT_SCHEDULER") or None,
                       help="run the audits on this existing Dask scheduler (default: "
                            "$LTI_AUDIT_SCHEDULER, else a local cluster started here)")
-    jobs.add_argument("--workers", type=_positive_int, default=None, metavar="K",
+    jobs.add_argument("--workers", type=whole_number(1), default=None, metavar="K",
                       help="worker processes of the local cluster (default: one per CPU)")
-    jobs.add_argument("--queue-size", type=_positive_int, default=None, metavar="N",
+    jobs.add_argument("--queue-size", type=whole_number(1), default=None, metavar="N",
                       help="audits in flight before submissions get 503 (default 500)")
-    jobs.add_argument("--token-quota", type=_positive_int, default=None, metavar="N",
+    jobs.add_argument("--token-quota", type=whole_number(1), default=None, metavar="N",
                       help="audits in flight per token before its submissions get 429 "
                            "(default 50)")
-    jobs.add_argument("--job-seconds", type=_positive_float, default=None, metavar="S",
+    jobs.add_argument("--job-seconds", type=positive_number, default=None, metavar="S",
                       help="time budget of one audit; then it ends inconclusive (default 600)")
-    jobs.add_argument("--job-attempts", type=_positive_int, default=None, metavar="N",
+    jobs.add_argument("--job-attempts", type=whole_number(1), default=None, metavar="N",
                       help="worker starts of an audit before it fails (default 3)")
-    jobs.add_argument("--db-pool-size", type=_positive_int, default=None, metavar="N",
+    jobs.add_argument("--db-pool-size", type=whole_number(1), default=None, metavar="N",
                       help="database connections kept open (default 10; as many again "
                            "are opened under load)")
 

@@ -18,7 +18,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-from ._options import whole_number
+from ._options import positive_number, whole_number
 
 NAME = "stress"
 HELP = "stress model conversions with random systems; report pass rates, envelopes, counterexamples"
@@ -34,21 +34,11 @@ def _shard(text: str) -> tuple[int, int]:
     return i, n
 
 
-def _positive_float(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"expected a number > 0, got {text}")
-    return value
-
-
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     limit = parser.add_mutually_exclusive_group()
     limit.add_argument("--budget", type=whole_number(0), metavar="N",
                        help="number of random systems of the whole campaign (default 20)")
-    limit.add_argument("--minutes", type=_positive_float, metavar="M",
+    limit.add_argument("--minutes", type=positive_number, metavar="M",
                        help="stop submitting new systems after M minutes (the set completed then "
                        "depends on machine speed; --budget is exactly reproducible)")
     parser.add_argument("--seed", type=whole_number(0), default=0, help="campaign seed (default 0)")
@@ -70,9 +60,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="run only this pipeline (repeatable; see --list-pipelines)")
     parser.add_argument("--max-order", type=whole_number(1), default=None, metavar="N",
                         help="largest order drawn (default 12)")
-    parser.add_argument("--max-spread", type=_positive_float, default=None, metavar="DECADES",
+    parser.add_argument("--max-spread", type=positive_number, default=None, metavar="DECADES",
                         help="largest pole spread drawn, in decades (default 8)")
-    parser.add_argument("--rtol", type=_positive_float, default=None,
+    parser.add_argument("--rtol", type=positive_number, default=None,
                         help="relative tolerance of the verdict (default 1e-5)")
     parser.add_argument("--merge", nargs="+", default=None, metavar="SHARD_DIR",
                         help="merge the campaign.json of shard directories into --out instead of running")
