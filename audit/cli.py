@@ -28,10 +28,10 @@ class _Parser(argparse.ArgumentParser):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    from .commands._options import relative_tolerance, seconds
-    from .discretization_methods import METHODS
-    from .evidence import DEFAULT_RTOL
-    from .verdict import ESCALATION_SECONDS
+    from audit.commands._options import relative_tolerance, seconds
+    from audit.dynamics.discretization_methods import METHODS
+    from audit.evidence.record import DEFAULT_RTOL
+    from audit.verdict.compare import ESCALATION_SECONDS
 
     parser = _Parser(
         prog="lti-audit",
@@ -102,8 +102,8 @@ def _absolute_tolerance(text: str) -> float:
 
 def _discretization_method(text: str) -> str:
     """``--discretization``: one of the method names, else a usage error listing them."""
-    from .discretization_methods import discretization_method
-    from .errors import InvalidModelError
+    from audit.dynamics.discretization_methods import discretization_method
+    from audit.errors import InvalidModelError
 
     try:
         return discretization_method(text, field="--discretization")
@@ -116,7 +116,7 @@ def _command_modules() -> list[Any]:
     import importlib
     import pkgutil
 
-    from . import commands
+    from audit import commands
 
     found = []
     for info in sorted(pkgutil.iter_modules(commands.__path__), key=lambda i: i.name):
@@ -132,10 +132,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help(sys.stderr)
         return EXIT_INVALID
-    from .errors import AuditError
+    from audit.errors import AuditError
 
     if args.command in ("compare", "inspect", "convert", "check"):
-        from ._threads import set_audit_threads
+        from audit.core.threads import set_audit_threads
 
         set_audit_threads()  # one audit at a time: its large factorizations may use every core
     try:
@@ -145,7 +145,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _inspect(args)
         return int(args._run(args))
     except AuditError as exc:
-        from .safe_output import terminal_text
+        from audit.reports.safe_output import terminal_text
 
         sys.stderr.write(terminal_text(f"lti-audit: error: {exc}\n"))
         return EXIT_INVALID
@@ -164,11 +164,11 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _compare(args: argparse.Namespace) -> int:
-    from .errors import IncompatibleModelsError
-    from .loading import load_model_document
-    from .report import compare_report, render_compare_text, render_json, signal_labels
-    from .safe_output import terminal_text
-    from .verdict import Options, overall_verdict
+    from audit.errors import IncompatibleModelsError
+    from audit.documents.loading import load_model_document
+    from audit.reports.shapes import compare_report, render_compare_text, render_json, signal_labels
+    from audit.reports.safe_output import terminal_text
+    from audit.verdict.compare import Options, overall_verdict
 
     if len(args.models) < 2:
         sys.stderr.write("lti-audit: error: compare needs at least two models (got 1)\n")
@@ -182,12 +182,12 @@ def _compare(args: argparse.Namespace) -> int:
         sys.stderr.write("lti-audit: error: --format html needs -o FILE\n")
         return EXIT_INVALID
     if args.output:
-        from .safe_output import check_new_output
+        from audit.reports.safe_output import check_new_output
 
         check_new_output(args.output, flag="")  # the output rule, checked before any work
     start = time.perf_counter()
     docs = [load_model_document(path) for path in args.models]
-    from .sparse_models import SparseRealization, model_for_comparison
+    from audit.documents.sparse import SparseRealization, model_for_comparison
 
     models = [model_for_comparison(doc).with_name(doc.name) for doc in docs]
     if args.format == "html" and any(isinstance(m, SparseRealization) for m in models):
@@ -208,7 +208,7 @@ def _compare(args: argparse.Namespace) -> int:
         except IncompatibleModelsError as exc:
             raise IncompatibleModelsError(f"{path}: {exc}") from None
     verdict = overall_verdict(pairs)
-    from .internal_stability import model_modes, modes_from_comparisons, unaccepted
+    from audit.structure.internal_stability import model_modes, modes_from_comparisons, unaccepted
 
     modes = [_sparse_modes(m) if isinstance(m, SparseRealization)
              else modes_from_comparisons(m, pairs) or model_modes(m, label=m.name)
@@ -217,15 +217,15 @@ def _compare(args: argparse.Namespace) -> int:
                           time.perf_counter() - start, signals=signals, modes=modes,
                           accepted_reason=args.accept_hidden_instability)
     if args.format == "html":
-        from .html_report import render_compare_html
+        from audit.reports.html_page import render_compare_html
 
         text = render_compare_html(data, _drawn_models(models, args))
     else:
         text = render_json(data) if args.format == "json" else render_compare_text(data)
         text = text if args.format == "json" else terminal_text(text)  # names: plain text
     if args.output:
-        from .report import compare_headline
-        from .safe_output import write_output_file
+        from audit.reports.shapes import compare_headline
+        from audit.reports.safe_output import write_output_file
 
         write_output_file(args.output, text, flag="")
         sys.stdout.write(f"{compare_headline(data)}; report written to {args.output}\n")
@@ -239,7 +239,7 @@ def _compare(args: argparse.Namespace) -> int:
 def _sparse_modes(m: Any) -> Any:
     """No hidden-mode analysis for a sparse model on the sampled route (a dense staircase
     of its order is what that route avoids): an empty, undecided entry."""
-    from .internal_stability import ModelModes
+    from audit.structure.internal_stability import ModelModes
 
     nan = float("nan")  # not analysed
     return ModelModes(label=m.name, modes=(), minimal_order=m.order,
@@ -257,8 +257,8 @@ def _reason(text: str) -> str:
 def _stated_tolerances(args: argparse.Namespace, doc: Any, reference: Any) -> dict[str, Any]:
     """``--atol``, ``--band`` and ``--channel-rtol`` as Options fields (names resolved
     against the first model's document); bad values raise InvalidModelError (exit 2)."""
-    from .band_peak import check_band
-    from .tolerances import parse_channel_tolerance, resolve_channel_tolerances
+    from audit.evidence.band_peak import check_band
+    from audit.evidence.tolerances import parse_channel_tolerance, resolve_channel_tolerances
 
     out: dict[str, Any] = {"atol": args.atol}
     if args.band is not None:
@@ -286,7 +286,7 @@ def _drawn_models(models: list[Any], args: argparse.Namespace) -> list[Any]:
     discrete = [m for m in models if m.is_discrete]
     if not args.discretization or not discrete or len(discrete) == len(models):
         return models
-    from .discretization import discretize
+    from audit.dynamics.discretization import discretize
 
     period = float(discrete[0].sample_period)
     return [m if m.is_discrete else discretize(
@@ -295,13 +295,13 @@ def _drawn_models(models: list[Any], args: argparse.Namespace) -> list[Any]:
 
 
 def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore[no-untyped-def]
-    from .realization import check_comparable, same_time_domain
-    from .sparse_models import SparseRealization, compare_sparse_pair
-    from .verdict import compare_discretized, compare_pair, compare_sample_periods
+    from audit.core.realization import check_comparable, same_time_domain
+    from audit.documents.sparse import SparseRealization, compare_sparse_pair
+    from audit.verdict.compare import compare_discretized, compare_pair, compare_sample_periods
 
     if isinstance(ref, SparseRealization) or isinstance(other, SparseRealization):
         if options.atol or options.band is not None or getattr(options, "channel_rtol", None):
-            from .errors import InvalidModelError
+            from audit.errors import InvalidModelError
 
             raise InvalidModelError("--atol, --band and --channel-rtol are not available on "
                                     "the sampled sparse route (models above "
@@ -315,7 +315,7 @@ def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore
         return compare_discretized(ref, other, method=args.discretization,
                                    prewarp_frequency=args.prewarp, options=options)
     if args.discretization:
-        from .errors import IncompatibleModelsError
+        from audit.errors import IncompatibleModelsError
 
         raise IncompatibleModelsError(
             "--discretization needs one continuous-time and one discrete-time model, but "
@@ -327,9 +327,9 @@ def _compare_one(ref, other, args: argparse.Namespace, options):  # type: ignore
 
 
 def _inspect(args: argparse.Namespace) -> int:
-    from .inspection import inspect_model
-    from .loading import load_model_document, realization_from_document
-    from .report import inspect_report, render_inspect_text, render_json
+    from audit.verdict.inspection import inspect_model
+    from audit.documents.loading import load_model_document, realization_from_document
+    from audit.reports.shapes import inspect_report, render_inspect_text, render_json
 
     doc = load_model_document(args.model)
     r = realization_from_document(doc)
@@ -337,7 +337,7 @@ def _inspect(args: argparse.Namespace) -> int:
         r = r.with_name(os.path.basename(args.model))
     insp = inspect_model(r, claimed_form=getattr(doc, "claimed_form", None))
     data = inspect_report(r, args.model, insp)
-    from .safe_output import terminal_text
+    from audit.reports.safe_output import terminal_text
 
     sys.stdout.write(render_json(data) if args.format == "json"
                      else terminal_text(render_inspect_text(data)))

@@ -12,15 +12,15 @@ package), so that in any project with lti-audit installed::
         assert_same_system(reference_realization, reduced_realization, rtol=1e-4)
 
 ``a`` and ``b`` may each be a path to a model file, an
-:class:`audit.realization.Realization`, an :class:`audit.documents.ModelDocument`, a
+:class:`audit.core.realization.Realization`, an :class:`audit.documents.schema.ModelDocument`, a
 model-document ``dict``, or a python-control ``StateSpace`` / ``TransferFunction`` or
-scipy.signal LTI object (converted by :mod:`audit.interop`). The assertion compares them with
-:func:`audit.verdict.compare_pair`; on failure the ``AssertionError`` message is the
+scipy.signal LTI object (converted by :mod:`audit.documents.interop`). The assertion compares them with
+:func:`audit.verdict.compare.compare_pair`; on failure the ``AssertionError`` message is the
 human-readable diagnosis (explanation, diagnosis lines, warnings, the decisive evidence).
 An inconclusive comparison fails too (the assertion cannot be confirmed), with the reason.
 
 The default tolerance of the fixture is ``--lti-audit-rtol`` on the command line, else
-the ini option ``lti_audit_rtol``, else :data:`audit.evidence.DEFAULT_RTOL`.
+the ini option ``lti_audit_rtol``, else :data:`audit.evidence.record.DEFAULT_RTOL`.
 
 Numerical modules are imported lazily: loading the plugin costs nothing in a test run
 that does not use it. No numerical method is implemented here.
@@ -35,7 +35,7 @@ from typing import TYPE_CHECKING, Any
 import pytest
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .verdict import PairComparison
+    from audit.verdict.compare import PairComparison
 
 __all__ = ["LtiAuditHelper", "assert_same_system", "compare_systems", "lti_audit"]
 
@@ -44,10 +44,10 @@ _RTOL_OPTION = "--lti-audit-rtol"
 
 
 def _as_realization(obj: Any, argument: str) -> Any:
-    from .documents import ModelDocument
-    from .errors import InvalidModelError
-    from .loading import load_realization, parse_model_document, realization_from_document
-    from .realization import Realization
+    from audit.documents.schema import ModelDocument
+    from audit.errors import InvalidModelError
+    from audit.documents.loading import load_realization, parse_model_document, realization_from_document
+    from audit.core.realization import Realization
 
     if isinstance(obj, Realization):
         return obj.with_name(obj.name or argument)
@@ -59,7 +59,7 @@ def _as_realization(obj: Any, argument: str) -> Any:
     if isinstance(obj, dict):
         doc = parse_model_document(obj, source=f"{argument} (model-document dict)")
         return realization_from_document(doc)
-    from .interop import is_foreign_system, realization_from_object
+    from audit.documents.interop import is_foreign_system, realization_from_object
 
     if is_foreign_system(obj):  # python-control / scipy.signal objects
         r = realization_from_object(obj)
@@ -81,13 +81,13 @@ def compare_systems(a: Any, b: Any, *, rtol: float | None = None,
         ``C : (p, n)``, ``D : (p, m)`` once loaded.
     rtol : float or None, keyword-only
         Relative tolerance on the peak gain of ``G1 - G2``; ``None``:
-        :data:`audit.evidence.DEFAULT_RTOL`.
+        :data:`audit.evidence.record.DEFAULT_RTOL`.
     escalation_seconds : float or None, keyword-only
-        Extended-precision budget (``None``: the default of :class:`audit.verdict.Options`).
+        Extended-precision budget (``None``: the default of :class:`audit.verdict.compare.Options`).
 
     Returns
     -------
-    audit.verdict.PairComparison
+    audit.verdict.compare.PairComparison
 
     Raises
     ------
@@ -96,9 +96,9 @@ def compare_systems(a: Any, b: Any, *, rtol: float | None = None,
     IncompatibleModelsError
         Different input/output counts or time domains.
     """
-    from .evidence import DEFAULT_RTOL
-    from .realization import check_comparable
-    from .verdict import Options, compare_pair
+    from audit.evidence.record import DEFAULT_RTOL
+    from audit.core.realization import check_comparable
+    from audit.verdict.compare import Options, compare_pair
 
     r1 = _as_realization(a, "a")
     r2 = _as_realization(b, "b")
@@ -113,7 +113,7 @@ def compare_systems(a: Any, b: Any, *, rtol: float | None = None,
 
 def failure_message(pair: "PairComparison") -> str:
     """The human-readable diagnosis of a comparison that is not ``equivalent``."""
-    from .ci_outputs import diagnosis_lines
+    from audit.reports.ci_outputs import diagnosis_lines
 
     head = {"different": "models are DIFFERENT", "inconclusive": "equivalence is INCONCLUSIVE"}
     lines = [f"lti-audit: {head.get(pair.verdict, pair.verdict)}", pair.explanation]
@@ -139,13 +139,13 @@ def assert_same_system(a: Any, b: Any, *, rtol: float | None = None,
         See :func:`compare_systems`.
     rtol : float or None, keyword-only
         Relative tolerance on the peak gain of ``G1 - G2`` (default
-        :data:`audit.evidence.DEFAULT_RTOL`).
+        :data:`audit.evidence.record.DEFAULT_RTOL`).
     escalation_seconds : float or None, keyword-only
         Extended-precision budget.
 
     Returns
     -------
-    audit.verdict.PairComparison
+    audit.verdict.compare.PairComparison
         The comparison (verdict ``equivalent``), e.g. to inspect its evidence.
 
     Raises
@@ -157,7 +157,7 @@ def assert_same_system(a: Any, b: Any, *, rtol: float | None = None,
 
     Examples
     --------
-    >>> from audit.realization import Realization
+    >>> from audit.core.realization import Realization
     >>> g = Realization.from_arrays([[-1.0]], [[1.0]], [[2.0]], [[0.0]])
     >>> h = Realization.from_arrays([[-1.0]], [[2.0]], [[1.0]], [[0.0]])   # x scaled by 2
     >>> assert_same_system(g, h).verdict
@@ -234,7 +234,7 @@ def lti_audit(request: pytest.FixtureRequest) -> LtiAuditHelper:
     pytest.UsageError
         The configured tolerance is not a number in (0, 1).
     """
-    from .evidence import DEFAULT_RTOL
+    from audit.evidence.record import DEFAULT_RTOL
 
     config = request.config
     text = config.getoption("lti_audit_rtol", default=None)

@@ -34,7 +34,7 @@ from typing import Any, Literal
 import numpy as np
 from numpy.typing import NDArray
 
-from audit.realization import Realization
+from audit.core.realization import Realization
 
 FloatArray = NDArray[np.float64]
 
@@ -285,7 +285,7 @@ def _dedupe(w: FloatArray, rel: float = 1e-7) -> FloatArray:
 # ------------------------------------------------- stored transfer functions / factors
 # Benchmark pairs may be transfer-function or zero-pole-gain DOCUMENTS: their realization
 # carries the stored data (``Realization.stored``). Labels are verified on the stored data,
-# evaluated here by code independent of audit.stored_evaluation: numpy.polyval /
+# evaluated here by code independent of audit.core.stored_evaluation: numpy.polyval /
 # products in double (only to choose where to verify), python-flint balls and mpmath for
 # the verified numbers.
 def _stored_channels(r: Realization) -> list[tuple[int, int, str, Any, Any, Any]]:

@@ -25,8 +25,8 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.linalg import splu
 
-from audit.realization import Realization
-from audit.sparse_models import SparseRealization
+from audit.core.realization import Realization
+from audit.documents.sparse import SparseRealization
 
 BAR_LENGTH = 12.0  # m
 DIFFUSIVITY = 1.2e-5  # m^2/s, steel
@@ -55,7 +55,7 @@ def krylov_reduced(r: SparseRealization, shifts: int = 40, *, name: str = "reduc
     """Galerkin rational Krylov reduction at ``shifts`` real shifts over the spectrum."""
     a = r.a.tocsc()
     n = a.shape[0]
-    from audit.sparse_models import spectrum_extent
+    from audit.documents.sparse import spectrum_extent
 
     low, high, _ = spectrum_extent(r)
     low /= 10.0

@@ -9,7 +9,7 @@ Sources: stable SISO models of order 5, 10, 20, 40, 80 with poles spread over 1,
 transformation computed in extended precision and rounded once).  Each form is produced
 from the stored source by
 
-* lti-audit: ``audit.forms.FORMS[name](source)`` (``refused`` when the producer raises
+* lti-audit: ``audit.forms.catalogue.FORMS[name](source)`` (``refused`` when the producer raises
   NumericalTroubleError -- the intended behaviour for a form that cannot reproduce the
   model);
 * scipy (companion route): ``scipy.signal.ss2tf`` then ``scipy.signal.tf2ss`` (controller
@@ -42,7 +42,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import _cases as cs  # noqa: E402
-from audit.realization import Realization  # noqa: E402
+from audit.core.realization import Realization  # noqa: E402
 
 FORM_BITS = 256
 FORM_NAMES = ("controllable_companion", "observable_companion", "modal", "jordan", "balanced")
@@ -111,7 +111,7 @@ class _Reference:
 # ------------------------------------------------------------------ producers
 def _ours(name: str) -> Callable[[Realization], Realization]:
     def produce(r: Realization) -> Realization:
-        from audit.forms import FORMS
+        from audit.forms.catalogue import FORMS
 
         return FORMS[name](r).realization
 

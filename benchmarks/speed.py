@@ -6,9 +6,9 @@ Usage::
                                [--sparse-ladder]
 
 (a) a 100-state SISO claimed-equivalent pair audited end to end
-    (:func:`audit.verdict.compare_pair`), median wall-clock time;
+    (:func:`audit.verdict.compare.compare_pair`), median wall-clock time;
 (b) frequency response of a 200-state 2x2 model at 1000 frequencies:
-    :func:`audit.frequency.frequency_response` against python-control's
+    :func:`audit.evidence.frequency.frequency_response` against python-control's
     ``StateSpace.frequency_response`` (slycot TB05AD when slycot is installed), both
     timed in the same run, both checked against a 128-bit python-flint evaluation of the
     stored model at 20 of the frequencies;
@@ -30,7 +30,7 @@ Usage::
     (pointwise error relative to the local value);
 (g) a sparse ladder (2,000 to 20,000 states; the reheating-bar finite-difference model of
     ``benchmarks/_sparse_cases.py``): each pair audited from .npz files in its own
-    subprocess by the sampled sparse route (:func:`audit.sparse_models.compare_sparse_pair`,
+    subprocess by the sampled sparse route (:func:`audit.documents.sparse.compare_sparse_pair`,
     sampled evidence accepted), against a rational Krylov reduced model, against a
     refactored sparse copy (states scaled by powers of two and permuted: exact; bar only), and
     against a copy with the loss coefficient moved by 1e-3; wall-clock, CPU, peak
@@ -57,7 +57,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import _cases as cs  # noqa: E402
-from audit.realization import Realization  # noqa: E402
+from audit.core.realization import Realization  # noqa: E402
 
 
 def _median_time(fn: Callable[[], Any], repeat: int) -> tuple[float, Any]:
@@ -80,7 +80,7 @@ def _pair(seed: int, n: int, io: tuple[int, int], *, cond: float = 1e3,
 
 # ----------------------------------------------------------------------- (a)
 def end_to_end(n: int, repeat: int) -> dict[str, Any]:
-    from audit.verdict import compare_pair
+    from audit.verdict.compare import compare_pair
 
     r1, r2 = _pair(1, n, (1, 1))
     t, pc = _median_time(lambda: compare_pair(r1, r2), repeat)
@@ -93,7 +93,7 @@ def frequency_response_race(n: int, points: int, repeat: int, check_points: int)
     import control
     import flint
 
-    from audit.frequency import frequency_response
+    from audit.evidence.frequency import frequency_response
 
     _, r = _pair(2, n, (2, 2))
     omega = np.geomspace(1e-3, 1e3, points)
@@ -123,12 +123,12 @@ def frequency_response_race(n: int, points: int, repeat: int, check_points: int)
 
 # ----------------------------------------------------------------------- (c)
 def scaling(orders: list[int], ios: list[tuple[int, int]], *, audit_max_order: int) -> list[dict[str, Any]]:
-    from audit.frequency import TransferEvaluator
-    from audit.markov import common_frequency_scale, markov_parameters
-    from audit.norms import peak_gain
-    from audit.similarity import similarity_transform_between
-    from audit.structure import minimal_realization
-    from audit.verdict import compare_pair
+    from audit.evidence.frequency import TransferEvaluator
+    from audit.evidence.markov import common_frequency_scale, markov_parameters
+    from audit.evidence.peak_gain import peak_gain
+    from audit.evidence.similarity import similarity_transform_between
+    from audit.structure.minimal import minimal_realization
+    from audit.verdict.compare import compare_pair
 
     # warm-up: first calls pay for lazy imports (scipy.sparse, slycot, ...); keep that
     # out of the table
@@ -211,7 +211,7 @@ def render(a: dict[str, Any], b: dict[str, Any], c: list[dict[str, Any]], d: dic
     lines.append("")
     lines.append("| implementation | seconds | max rel. error | median rel. error |")
     lines.append("|---|---|---|---|")
-    lines.append(f"| audit.frequency.frequency_response | {b['ours_seconds']:.4f} | "
+    lines.append(f"| audit.evidence.frequency.frequency_response | {b['ours_seconds']:.4f} | "
                  f"{b['ours_max_rel_error']:.1e} | {b['ours_median_rel_error']:.1e} |")
     lines.append(f"| control.StateSpace.frequency_response | {b['control_seconds']:.4f} | "
                  f"{b['control_max_rel_error']:.1e} | {b['control_median_rel_error']:.1e} |")
@@ -294,7 +294,7 @@ def ladder_pair(n: int, io: tuple[int, int], kind: str, seed: int = 11) -> tuple
 
 
 def published_pair(name: str, kind: str) -> tuple[Realization, Realization]:
-    from audit.loading import load_realization
+    from audit.documents.loading import load_realization
 
     r = load_realization(DATA / f"{name}.json").with_name(name)
     if kind == "equivalent":
@@ -308,8 +308,8 @@ def published_pair(name: str, kind: str) -> tuple[Realization, Realization]:
 def _case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
     import resource
 
-    from audit._threads import set_audit_threads
-    from audit.verdict import compare_pair
+    from audit.core.threads import set_audit_threads
+    from audit.verdict.compare import compare_pair
 
     set_audit_threads()  # as the command line does for one audit
     if spec["source"] == "ladder":
@@ -333,9 +333,9 @@ def _sparse_case_in_process(spec: dict[str, Any]) -> dict[str, Any]:
     import scipy.sparse as sp
     from _sparse_cases import LOSS, SLAB_LOSS, floor_slab, krylov_reduced, reheating_bar
 
-    from audit._threads import set_audit_threads
-    from audit.loading import load_model_document
-    from audit.sparse_models import (compare_sparse_pair, model_for_comparison,
+    from audit.core.threads import set_audit_threads
+    from audit.documents.loading import load_model_document
+    from audit.documents.sparse import (compare_sparse_pair, model_for_comparison,
                                      save_sparse_model_npz)
 
     set_audit_threads()
@@ -496,7 +496,7 @@ def response_race(r: Realization, *, check_points: int, repeat: int) -> dict[str
     import control
     from threadpoolctl import threadpool_limits
 
-    from audit.frequency import TransferEvaluator, adaptive_frequency_grid
+    from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
 
     grid = adaptive_frequency_grid([r])
     sys_ = control.StateSpace(r.a, r.b, r.c, r.d)
@@ -512,7 +512,7 @@ def response_race(r: Realization, *, check_points: int, repeat: int) -> dict[str
     def cpu_median(fn: Callable[[], Any]) -> tuple[float, Any]:
         times, out = [], None
         for _ in range(repeat):
-            from audit import frequency as fr
+            from audit.evidence import frequency as fr
 
             fr._EVALUATOR_CACHE.clear()  # time the reductions too
             t0 = time.process_time()
@@ -539,7 +539,7 @@ def response_race(r: Realization, *, check_points: int, repeat: int) -> dict[str
 
 
 def published(names: list[str], budget: float, *, check_points: int, repeat: int) -> list[dict[str, Any]]:
-    from audit.loading import load_realization
+    from audit.documents.loading import load_realization
 
     rows = []
     for name in names:

@@ -9,7 +9,7 @@ every applicable pipeline (about 20 audits each). Shrinking of failures is switc
 local cluster is started and warmed up (every worker imports the libraries and runs one
 case) before the campaign is timed; the start-up and warm-up time is printed in its own
 column. Every run's report is checked to equal the single-process one
-(:func:`audit.stress.reproducible_part`).
+(:func:`audit.workflows.stress.reproducible_part`).
 
 Usage: python benchmarks/stress_throughput.py [--budget N] [--seed S] [--max-order N]
        [--scheduler tcp://HOST:PORT]
@@ -23,7 +23,7 @@ import time
 
 from dataclasses import replace
 
-from audit.stress import CampaignSettings, pipelines, reproducible_part, run_campaign, run_case
+from audit.workflows.stress import CampaignSettings, pipelines, reproducible_part, run_campaign, run_case
 
 
 def _warm(settings: CampaignSettings) -> None:

@@ -9,7 +9,7 @@ verified on the stored doubles in extended precision (``benchmarks/_cases.py``),
 whose verified relative difference lies between 1e-6 and 1e-4 are discarded (and
 counted).  Each pair is then judged by
 
-* ``lti-audit``      -- :func:`audit.verdict.compare_pair` with default options;
+* ``lti-audit``      -- :func:`audit.verdict.compare.compare_pair` with default options;
 * ``tf-coeffs``      -- transfer-function coefficients per input (``scipy.signal.ss2tf``),
   denominator made monic, relative 2-norm difference of numerator and denominator;
 * ``fixed-grid``     -- sigma_max of ``G1 - G2`` on 200 log-spaced frequencies
@@ -37,7 +37,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import _cases as cs  # noqa: E402
-from audit.realization import Realization  # noqa: E402
+from audit.core.realization import Realization  # noqa: E402
 
 Verdict = str  # "equivalent" | "different" | "inconclusive"
 
@@ -194,19 +194,19 @@ def build_mimo_changed(rng, n, delta, cond, io):
 
 # ------------------------------------------- transfer-function and zero-pole-gain documents
 # Pairs of model DOCUMENTS (issue 10): each transfer function / zero-pole-gain model is
-# realized by audit.conversions (as `lti-audit` loads it) and carries its stored data;
+# realized by audit.core.conversions (as `lti-audit` loads it) and carries its stored data;
 # labels are verified on the stored coefficients and factors (benchmarks/_cases.py).
 MODELS = Path(__file__).resolve().parent / "models"
 
 
 def _tf(num, den, period=None, name="transfer function"):  # type: ignore[no-untyped-def]
-    from audit.conversions import realization_from_transfer_function
+    from audit.core.conversions import realization_from_transfer_function
 
     return realization_from_transfer_function(num, den, period).with_name(name)
 
 
 def _factored(z, p, k, period=None, name="zero-pole-gain"):  # type: ignore[no-untyped-def]
-    from audit.conversions import realization_from_zeros_poles_gain
+    from audit.core.conversions import realization_from_zeros_poles_gain
 
     return realization_from_zeros_poles_gain(z, p, k, period).with_name(name)
 
@@ -539,7 +539,7 @@ def build_suite(*, quick: bool, seed: int, only: list[str] | None = None) -> lis
 # ---------------------------------------------------------------- judges
 def judge_audit(r1: Realization, r2: Realization, rtol: float) -> tuple[Verdict, Any]:
     from audit.errors import AuditError
-    from audit.verdict import Options, compare_pair
+    from audit.verdict.compare import Options, compare_pair
 
     try:
         pc = compare_pair(r1, r2, options=Options(rtol=rtol))
@@ -805,13 +805,13 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="tiny suite (seconds)")
     parser.add_argument("--seed", type=int, default=20240601)
     parser.add_argument("--rtol", type=float, default=None,
-                        help="relative tolerance (default: audit.evidence.DEFAULT_RTOL)")
+                        help="relative tolerance (default: audit.evidence.record.DEFAULT_RTOL)")
     parser.add_argument("--families", default="",
                         help="comma-separated family-name prefixes to run (default: all)")
     parser.add_argument("--dump-documents", default=None, metavar="DIR",
                         help="also write every kept pair as model documents into DIR")
     args = parser.parse_args(argv)
-    from audit.evidence import DEFAULT_RTOL
+    from audit.evidence.record import DEFAULT_RTOL
 
     rtol = DEFAULT_RTOL if args.rtol is None else args.rtol
     start = time.perf_counter()

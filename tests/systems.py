@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from audit.realization import Realization
+from audit.core.realization import Realization
 
 
 def random_poles(rng: np.random.Generator, n: int, *, discrete: bool, unstable: bool = False,

@@ -16,7 +16,7 @@ from types import ModuleType
 import numpy as np
 import pytest
 
-from audit.realization import Realization
+from audit.core.realization import Realization
 
 BENCH = Path(__file__).resolve().parent.parent / "benchmarks"
 
@@ -94,7 +94,7 @@ def test_exact_transform_by_powers_of_two_is_exact(cases: ModuleType) -> None:
 # ----------------------------------------------------------- the benchmarks
 def test_verdicts_quick_suite_has_no_false_verdicts() -> None:
     verdicts = _load("verdicts")
-    from audit.evidence import DEFAULT_RTOL
+    from audit.evidence.record import DEFAULT_RTOL
 
     pairs, summary, text = verdicts.run(quick=True, seed=20240601, rtol=DEFAULT_RTOL)
     assert "| ALL |" in text and "lti-audit" in text
@@ -117,7 +117,7 @@ def test_speed_quick_prints_tables(capsys: pytest.CaptureFixture[str]) -> None:
     for heading in ("(a) compare_pair", "(b) frequency response", "(c) time", "(d) start-up",
                     "(e) size ladder", "(f) published models"):
         assert heading in out
-    assert "| audit.frequency.frequency_response |" in out
+    assert "| audit.evidence.frequency.frequency_response |" in out
     # the quick ladder: an 8-state pair equivalent by an exact change of coordinates and
     # one with a pole moved by 1e-3 (construction), and the published 48-state model
     assert "| 1x1 | 8 | equivalent |" in out and out.count("| equivalent |") >= 1

@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 
 from audit.cli import main
-from audit.report import CAUTION
+from audit.reports.shapes import CAUTION
 
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLE = ROOT / "fixtures" / "example_repo"
@@ -63,7 +63,7 @@ def test_failing_claim_exits_1_and_error_exits_2(capsys, example: Path) -> None:
 
 
 def test_inconclusive_exits_3(capsys, example: Path, monkeypatch) -> None:
-    import audit.verdict as verdict
+    import audit.verdict.compare as verdict
 
     real = verdict.compare_pair
 

@@ -237,6 +237,6 @@ def test_html_report_is_written_once(capsys, tmp_path):
 
 def test_convert_offers_exactly_the_claimable_forms():
     from audit.commands.convert import FORM_NAMES
-    from audit.documents import CLAIMED_FORMS
+    from audit.documents.schema import CLAIMED_FORMS
 
     assert tuple(FORM_NAMES) == tuple(CLAIMED_FORMS)

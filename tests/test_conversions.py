@@ -1,4 +1,4 @@
-"""Tests of audit.conversions against outside references.
+"""Tests of audit.core.conversions against outside references.
 
 Sources used (named beside each assertion):
 * SLICOT published examples TD04AD and TB04AD (repo SLICOT/SLICOT-Reference,
@@ -21,8 +21,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import linear_sum_assignment
 
-from audit import conversions
-from audit.conversions import (
+from audit.core import conversions
+from audit.core.conversions import (
     TransferFunctionData,
     ZerosPolesGainData,
     realization_from_transfer_function,
@@ -31,7 +31,7 @@ from audit.conversions import (
     zeros_poles_gain_from_realization,
 )
 from audit.errors import InvalidModelError, NumericalTroubleError
-from audit.realization import Realization, similarity_transformed
+from audit.core.realization import Realization, similarity_transformed
 
 EPS = np.finfo(float).eps
 S_POINTS = np.array([0.3j, 1.7j, 0.5 + 4.0j, 25.0j, -0.7 + 0.2j])
@@ -584,7 +584,7 @@ def test_bad_zeros_poles_gain(z, p, k, message) -> None:
 
 
 def test_bad_realization_argument() -> None:
-    with pytest.raises(InvalidModelError, match="expected an audit.realization.Realization"):
+    with pytest.raises(InvalidModelError, match="expected an audit.core.realization.Realization"):
         zeros_poles_gain_from_realization([[1.0]])  # type: ignore[arg-type]
 
 

@@ -1,4 +1,4 @@
-"""Tests for audit.discretization against outside references.
+"""Tests for audit.dynamics.discretization against outside references.
 
 References used: scipy.signal.cont2discrete (its methods 'zoh', 'foh', 'bilinear', 'impulse'
 against our zero-order-hold, triangle-hold, bilinear, impulse-invariant),
@@ -19,7 +19,7 @@ import scipy.signal as sig
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from audit.discretization import (
+from audit.dynamics.discretization import (
     check_discretization_claim,
     detect_sample_period_mismatch,
     discretize,
@@ -27,7 +27,7 @@ from audit.discretization import (
     zero_order_hold_pair,
 )
 from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
-from audit.realization import Realization
+from audit.core.realization import Realization
 
 
 def _mimo() -> Realization:

@@ -15,7 +15,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from audit.documents import (
+from audit.documents.schema import (
     CLAIMED_FORMS,
     MAX_LISTED_PROBLEMS,
     MAX_ORDER,
@@ -474,7 +474,7 @@ def test_format_path() -> None:
 
 def test_good_and_bad_documents_agree_with_the_published_schema() -> None:
     jsonschema = pytest.importorskip("jsonschema")
-    from audit.schema_export import model_document_schema
+    from audit.documents.schema_export import model_document_schema
 
     validator = jsonschema.Draft202012Validator(model_document_schema())
     for good in (conveyor(), valve_tf(), valve_zeros_poles_gain()):

@@ -1,4 +1,4 @@
-"""Tests of audit.forms: producing and recognising structured forms.
+"""Tests of audit.forms.catalogue: producing and recognising structured forms.
 
 Outside references used (named beside each assertion):
 * SLICOT AB13AD example (doc/AB13AD.html "Program Data"/"Program Results" in
@@ -22,7 +22,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from audit.errors import InvalidModelError, NumericalTroubleError
-from audit.forms import (
+from audit.forms.catalogue import (
     FORMS,
     balanced_form,
     check_claimed_form,
@@ -33,7 +33,7 @@ from audit.forms import (
     observable_companion_form,
     recognise_form,
 )
-from audit.realization import Realization, similarity_transformed
+from audit.core.realization import Realization, similarity_transformed
 
 PRODUCERS_NEEDING_MINIMAL = ("controllable_companion", "observable_companion")
 OWN_FORMS = ("controllable_companion", "observable_companion", "modal", "jordan", "balanced")
@@ -41,7 +41,7 @@ OWN_FORMS = ("controllable_companion", "observable_companion", "modal", "jordan"
 
 # ---------------------------------------------------------------- helpers
 def reference_response(r: Realization, points: np.ndarray) -> np.ndarray:
-    """Frequency response by python-control (independent of audit.forms)."""
+    """Frequency response by python-control (independent of audit.forms.catalogue)."""
     sys = control.ss(r.a, r.b, r.c, r.d, r.sample_period if r.is_discrete else 0)
     return np.asarray(sys(points, squeeze=False))
 
@@ -530,7 +530,7 @@ def test_forms_table() -> None:
 
 @pytest.mark.parametrize("form", ["kalman", "staircase"])
 def test_structure_module_forms(form: str) -> None:
-    pytest.importorskip("audit.structure")
+    pytest.importorskip("audit.structure.minimal")
     rng = np.random.default_rng(31)
     # constructed: a minimal 3-state part plus an uncontrollable mode at -4
     a = sla.block_diag(rng.standard_normal((3, 3)) - 2 * np.eye(3), [[-4.0]])

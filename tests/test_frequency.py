@@ -1,4 +1,4 @@
-"""Tests of audit.frequency against outside references.
+"""Tests of audit.evidence.frequency against outside references.
 
 Sources: SLICOT TB05AD example (doc/TB05AD.html in SLICOT/SLICOT-Reference, data read
 row by row, printed to two decimals); python-control 0.10.2 and scipy.signal as
@@ -20,13 +20,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
-from audit.frequency import (
+from audit.evidence.frequency import (
     TransferEvaluator,
     adaptive_frequency_grid,
     boundary_points,
     frequency_response,
 )
-from audit.realization import Realization
+from audit.core.realization import Realization
 
 
 def _random_system(seed: int, n: int, p: int, m: int, period: float | None = None):

@@ -19,9 +19,9 @@ import numpy as np
 import pytest
 
 from audit.cli import main
-from audit.gitbase import GitBaseError, classify_changes, resolve_revision
-from audit.manifest import default_manifest, load_claims_manifest
-from audit.report import CAUTION
+from audit.workflows.gitbase import GitBaseError, classify_changes, resolve_revision
+from audit.workflows.manifest import default_manifest, load_claims_manifest
+from audit.reports.shapes import CAUTION
 from tests.systems import random_transform, realization_with_poles
 
 pytestmark = pytest.mark.skipif(shutil.which("git") is None, reason="git is not installed")

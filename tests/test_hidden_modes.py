@@ -16,8 +16,8 @@ import mpmath
 import numpy as np
 import pytest
 
-from audit.realization import Realization
-from audit.structure import (
+from audit.core.realization import Realization
+from audit.structure.minimal import (
     NEARLY_HIDDEN_LEVEL,
     minimal_realization,
     mode_couplings,
@@ -211,8 +211,8 @@ def test_scaling_ignores_rounding_level_entries_only() -> None:
 
 
 def test_balanced_form_inspects_like_its_source() -> None:
-    from audit.forms import balanced_form
-    from audit.inspection import inspect_model
+    from audit.forms.catalogue import balanced_form
+    from audit.verdict.inspection import inspect_model
 
     r = example(3e-17)
     conv = balanced_form(r)
@@ -338,8 +338,8 @@ from hypothesis import assume, given  # noqa: E402
 from hypothesis import strategies as st  # noqa: E402
 
 from audit.errors import InvalidModelError, NumericalTroubleError  # noqa: E402
-from audit.forms import FORMS  # noqa: E402
-from audit.strategies import lti_systems  # noqa: E402
+from audit.forms.catalogue import FORMS  # noqa: E402
+from audit.workflows.strategies import lti_systems  # noqa: E402
 
 #: coupling of the added mode on its weak side, relative to ||B|| or ||C||
 EXTRA_COUPLING = {"exact": 0.0, "rounding": 1e-16, "weak": 1e-7, "coupled": 1.0}
@@ -348,7 +348,7 @@ EXTRA_COUPLING = {"exact": 0.0, "rounding": 1e-16, "weak": 1e-7, "coupled": 1.0}
 @st.composite
 def models_with_an_added_mode(draw: st.DrawFn, *, coordinate_condition: tuple[float, float] = (1.0, 10.0),
                               mix_condition: float = 1.0) -> Realization:
-    """A random model (with or without a stable hidden mode of audit.strategies) plus one
+    """A random model (with or without a stable hidden mode of audit.workflows.strategies) plus one
     unstable or marginal mode, exactly decoupled, decoupled to rounding level, weakly
     coupled (1e-7) or coupled on one side, in random coordinates (orthogonal when
     ``mix_condition`` is 1, else of that condition number)."""
@@ -380,7 +380,7 @@ def models_with_an_added_mode(draw: st.DrawFn, *, coordinate_condition: tuple[fl
     if mix_condition == 1.0:
         q, _ = np.linalg.qr(rng.standard_normal((n + 1, n + 1)))
         return Realization.from_arrays(q @ a @ q.T, q @ b, c @ q.T, base.d, base.sample_period)
-    from audit.strategies import random_coordinates
+    from audit.workflows.strategies import random_coordinates
 
     t = random_coordinates(n + 1, mix_condition, rng)
     return Realization.from_arrays(t @ np.linalg.solve(t.T, a.T).T, t @ b, np.linalg.solve(t.T, c.T).T,
@@ -388,7 +388,7 @@ def models_with_an_added_mode(draw: st.DrawFn, *, coordinate_condition: tuple[fl
 
 
 def _inspected(r: Realization) -> dict:
-    from audit.inspection import inspect_model
+    from audit.verdict.inspection import inspect_model
 
     insp = inspect_model(r)
     p = insp.properties
@@ -424,7 +424,7 @@ def test_every_written_form_inspects_like_its_source(form: str, r: Realization) 
     """Hidden modes, stability and minimal order of every form equal its source's.
 
     Bounded, not exact: a change of coordinates T moves a mode's joint coupling by at most
-    a factor cond(T)^2 (audit.structure.ModeCoupling), and each model's own state scaling
+    a factor cond(T)^2 (audit.structure.minimal.ModeCoupling), and each model's own state scaling
     D by cond(D)^2, so a mode whose joint coupling in the source lies within that factor
     (times 10) of a threshold may be classified on either side of it in the form; such
     modes are left out of the comparison. For a
@@ -471,7 +471,7 @@ def test_gate_maps_a_continuous_reference_into_the_discrete_domain() -> None:
     # compare --discretization: the reference's hidden mode at s = 0.5 is the discrete
     # model's hidden mode at z = exp(0.5 T) (closed form of the zero-order hold of a
     # decoupled state); it is not new
-    from audit.internal_stability import hidden_mode_problems, model_modes
+    from audit.structure.internal_stability import hidden_mode_problems, model_modes
 
     period = 0.1
     ref = model_modes(example(0.0), label="continuous")
@@ -484,8 +484,8 @@ def test_gate_maps_a_continuous_reference_into_the_discrete_domain() -> None:
 
 
 def test_modes_reused_from_the_comparison_equal_a_fresh_computation() -> None:
-    from audit.internal_stability import model_modes, modes_from_comparisons
-    from audit.verdict import compare_pair
+    from audit.structure.internal_stability import model_modes, modes_from_comparisons
+    from audit.verdict.compare import compare_pair
 
     ref = _minimal_valve().with_name("reference")
     vendor = example(1e-6).with_name("vendor")
@@ -499,7 +499,7 @@ def test_modes_reused_from_the_comparison_equal_a_fresh_computation() -> None:
 
 
 def test_equivalence_claim_fails_on_a_new_unstable_hidden_mode_unless_accepted(tmp_path) -> None:
-    from audit.manifest import evaluate_claims, load_claims_manifest
+    from audit.workflows.manifest import evaluate_claims, load_claims_manifest
 
     _write(tmp_path / "reference.json", _minimal_valve(), "reference")
     _write(tmp_path / "vendor.json", example(3e-17), "vendor")

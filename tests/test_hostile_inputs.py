@@ -523,7 +523,7 @@ def test_hostile_name_in_html_report_renders_as_text(sandbox: Path) -> None:
 def test_markdown_helpers_keep_names_literal(name: str) -> None:
     from markdown_it import MarkdownIt
 
-    from audit.safe_output import markdown_code, markdown_text
+    from audit.reports.safe_output import markdown_code, markdown_text
 
     md = f"| a | b |\n|---|---|\n| {markdown_text(name)} | {markdown_code(name)} |\n"
     html = MarkdownIt("commonmark").enable("table").render(md)
@@ -747,7 +747,7 @@ def test_service_stores_and_shows_hostile_names_safely(service: Any) -> None:
     csp = page.headers["content-security-policy"]
     # no script may run but the report page's own zoom script, named by its SHA-256 hash
     # (CSP Level 2 hash source): an injected inline script has another hash and is blocked
-    from audit.html_report import zoom_script_csp_source
+    from audit.reports.html_page import zoom_script_csp_source
 
     assert "default-src 'none'" in csp and "unsafe-inline' " not in csp.split("script-src")[-1]
     assert csp.split("script-src")[-1].strip() == zoom_script_csp_source()
@@ -789,7 +789,7 @@ def test_sqlite_and_postgresql_accept_and_store_the_same() -> None:
     pytest.importorskip("psycopg")
     import tempfile
 
-    from audit.documents import MAX_NAME_LENGTH, MAX_NOTE_LENGTH
+    from audit.documents.schema import MAX_NAME_LENGTH, MAX_NOTE_LENGTH
 
     edge = [good_document("n" * MAX_NAME_LENGTH),                     # longest name
             good_document("belt \U0001f600 drive \u00e9\u4e2d \x07\x1b[1m"),  # astral, controls

@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 
 from audit.errors import InvalidModelError
-from audit.html_report import render_compare_html
-from audit.loading import load_realization
-from audit.realization import Realization
-from audit.report import CAUTION, compare_report
-from audit.verdict import Options, compare_models, overall_verdict
+from audit.reports.html_page import render_compare_html
+from audit.documents.loading import load_realization
+from audit.core.realization import Realization
+from audit.reports.shapes import CAUTION, compare_report
+from audit.verdict.compare import Options, compare_models, overall_verdict
 
 DEMO = Path(__file__).resolve().parents[1] / "fixtures" / "demo"
 PLOTS = ("plot-bode-magnitude", "plot-bode-phase", "plot-difference", "plot-step",
@@ -97,7 +97,7 @@ def test_bad_input_raises_our_error(data: object, models: object, field: str) ->
 def test_plotted_response_matches_scipy() -> None:
     import scipy.signal
 
-    from audit.html_report import _plot_grid, _responses
+    from audit.reports.html_page import _plot_grid, _responses
 
     r = load_realization(DEMO / "conveyor_drive_reference.json")
     w = _plot_grid([r])
@@ -112,8 +112,8 @@ def test_plotted_response_matches_scipy() -> None:
 
 # ---------------------------------------------------------------- the page a reader opens
 def _doc_models(*names: str) -> tuple[list[Realization], dict]:
-    from audit.loading import load_model_document, realization_from_document
-    from audit.report import signal_labels
+    from audit.documents.loading import load_model_document, realization_from_document
+    from audit.reports.shapes import signal_labels
 
     docs = [load_model_document(DEMO / n) for n in names]
     models = [realization_from_document(d).with_name(d.name) for d in docs]
@@ -127,7 +127,7 @@ def _doc_models(*names: str) -> tuple[list[Realization], dict]:
 def test_difference_panel_is_relative_to_peak_and_hides_rounding_noise() -> None:
     import scipy.signal
 
-    from audit.html_report import _difference_curves, _plot_grid
+    from audit.reports.html_page import _difference_curves, _plot_grid
 
     models, data = _doc_models("conveyor_drive_reference.json", "conveyor_drive_refactored.json",
                                "conveyor_drive_gain_slip.json")
@@ -152,7 +152,7 @@ def test_difference_panel_is_relative_to_peak_and_hides_rounding_noise() -> None
 def test_phase_has_no_jump_at_a_zero_on_z_equals_minus_one() -> None:
     import scipy.signal
 
-    from audit.html_report import _plot_grid, _responses, _unwrapped_phase
+    from audit.reports.html_page import _plot_grid, _responses, _unwrapped_phase
 
     # G(z) = 0.1 (z + 1) / (z - 0.8), T = 0.01 s: a bilinear-type first-order lag whose
     # zero at z = -1 makes G exactly 0 at Nyquist (angle undefined there)
@@ -170,7 +170,7 @@ def test_phase_has_no_jump_at_a_zero_on_z_equals_minus_one() -> None:
 
 
 def test_mimo_panels_are_labelled_with_signal_names_and_units() -> None:
-    from audit.html_report import _channel_title
+    from audit.reports.html_page import _channel_title
 
     models, data = _doc_models("heated_zones_reference.json", "heated_zones_swapped_outputs.json")
     assert _channel_title(data, 0, 1, 2, 2) == "zone_1_temperature [degC]  \u2190  heater_2 [W]"
@@ -187,7 +187,7 @@ def _hidden_pair() -> tuple[list[Realization], dict]:
 
 
 def test_unstable_hidden_mode_gives_a_problem_badge_and_a_ringed_mode() -> None:
-    from audit.html_report import _hidden_modes
+    from audit.reports.html_page import _hidden_modes
 
     models, data = _hidden_pair()
     page = render_compare_html(data, models)
@@ -207,7 +207,7 @@ def test_problem_list_decides_the_badge_when_present(accepted: bool) -> None:
         "coupling": {"inputs": 0.0, "outputs": 1.0}, "classification": "hidden",
         "accepted": accepted, "reason": "drift is compensated upstream" if accepted else None,
         "message": "unstable hidden mode at 0.5"}])
-    from audit.html_report import _unaccepted_problems
+    from audit.reports.html_page import _unaccepted_problems
 
     # the badge is shown exactly when this list is non-empty (render_compare_html)
     assert bool(_unaccepted_problems(data)) is (not accepted)
@@ -226,7 +226,7 @@ def test_equivalent_page_has_no_problem_badge_and_numbers_do_not_wrap() -> None:
 
 
 def test_problem_list_hidden_modes_are_placed_on_the_map() -> None:
-    from audit.html_report import _hidden_modes
+    from audit.reports.html_page import _hidden_modes
 
     models, data = _hidden_pair()
     data = dict(data, problems=[{

@@ -1,4 +1,4 @@
-"""python-control and scipy.signal objects in, and out of, lti-audit (audit.interop)."""
+"""python-control and scipy.signal objects in, and out of, lti-audit (audit.documents.interop)."""
 
 from __future__ import annotations
 
@@ -10,10 +10,10 @@ import scipy.signal  # noqa: E402
 
 import audit  # noqa: E402
 from audit.errors import InvalidModelError  # noqa: E402
-from audit.frequency import frequency_response  # noqa: E402
-from audit.interop import realization_from_object  # noqa: E402
+from audit.evidence.frequency import frequency_response  # noqa: E402
+from audit.documents.interop import realization_from_object  # noqa: E402
 from audit.pytest_plugin import assert_same_system  # noqa: E402
-from audit.realization import Realization  # noqa: E402
+from audit.core.realization import Realization  # noqa: E402
 
 W = np.logspace(-2, 3, 60)
 

@@ -38,7 +38,7 @@ import pytest
 distributed = pytest.importorskip("distributed")
 httpx = pytest.importorskip("httpx")
 
-from audit import stress  # noqa: E402
+from audit.workflows import stress  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 BIN = Path(sys.executable).parent

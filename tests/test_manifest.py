@@ -19,7 +19,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from audit.errors import InvalidModelError
-from audit.manifest import (
+from audit.workflows.manifest import (
     ClaimsManifest,
     InvalidManifestError,
     evaluate_claims,

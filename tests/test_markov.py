@@ -1,4 +1,4 @@
-"""Tests for audit.markov: scaled Markov parameters and their comparison.
+"""Tests for audit.evidence.markov: scaled Markov parameters and their comparison.
 
 Every numeric assertion names where the true value came from.
 """
@@ -17,14 +17,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
-from audit.markov import (
+from audit.evidence.markov import (
     common_frequency_scale,
     compare_markov_parameters,
     compare_markov_parameters_exact,
     exact_markov_parameters,
     markov_parameters,
 )
-from audit.realization import Realization, similarity_transformed
+from audit.core.realization import Realization, similarity_transformed
 
 
 def _random_system(rng: np.random.Generator, n: int, m: int, p: int, dt=None) -> Realization:

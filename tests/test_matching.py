@@ -1,4 +1,4 @@
-"""Tests for audit.matching: optimal assignment of poles/zeros between two models."""
+"""Tests for audit.evidence.matching: optimal assignment of poles/zeros between two models."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from audit.errors import InvalidModelError
-from audit.matching import match_points
+from audit.evidence.matching import match_points
 
 
 def _brute_force_cost(p1, p2, floor):

@@ -1,4 +1,4 @@
-"""Tests of audit.norms (certified peak gain) against outside references.
+"""Tests of audit.evidence.peak_gain (certified peak gain) against outside references.
 
 Sources: SLICOT AB13DD through slycot and python-control's ``control.norm`` (which
 also calls slycot) as independent computations; closed-form resonance peaks; a
@@ -18,8 +18,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from audit.errors import InvalidModelError
-from audit.norms import PeakGain, peak_gain, peak_gain_reference_slycot
-from audit.realization import Realization
+from audit.evidence.peak_gain import PeakGain, peak_gain, peak_gain_reference_slycot
+from audit.core.realization import Realization
 
 
 def _system(seed: int, n: int, p: int, m: int, *, period: float | None, stable: bool,

@@ -19,10 +19,10 @@ from pathlib import Path
 
 import pytest
 
-from audit.loading import load_realization
-from audit.strategies import SystemSpec
-from audit.stress import pipelines, run_pipeline
-from audit.verdict import Options, compare_pair
+from audit.documents.loading import load_realization
+from audit.workflows.strategies import SystemSpec
+from audit.workflows.stress import pipelines, run_pipeline
+from audit.verdict.compare import Options, compare_pair
 
 ROOT = Path(__file__).resolve().parents[1] / "fixtures" / "promoted"
 FIXTURES = sorted(p.parent for p in ROOT.glob("*/manifest.json"))

@@ -2,7 +2,7 @@
 
 Hypothesis profiles (tests/conftest.py): the fast ``default`` profile runs a dozen examples
 per property; ``--nightly`` / ``LTI_AUDIT_PROFILE=nightly`` runs thousands.  Systems come
-from the public strategies of :mod:`audit.strategies` (equivalent-by-construction pairs are
+from the public strategies of :mod:`audit.workflows.strategies` (equivalent-by-construction pairs are
 exact up to one rounding per entry; different-by-construction pairs differ by a closed-form
 relative amount).  The reference for discretization is scipy.signal.cont2discrete
 (independent of our code); everything else is judged by the verdict against the input.
@@ -21,21 +21,21 @@ import scipy.signal
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
-from audit.conversions import (
+from audit.core.conversions import (
     realization_from_transfer_function,
     realization_from_zeros_poles_gain,
     transfer_function_from_realization,
     zeros_poles_gain_from_realization,
 )
-from audit.discretization import discretize
+from audit.dynamics.discretization import discretize
 from audit.errors import InvalidModelError, NumericalTroubleError
-from audit.forms import FORMS
-from audit.realization import Realization
-from audit.strategies import different_pairs, equivalent_pairs, lti_systems
-from audit.structure import minimal_realization
-from audit.verdict import Options, compare_models, compare_pair, overall_verdict
+from audit.forms.catalogue import FORMS
+from audit.core.realization import Realization
+from audit.workflows.strategies import different_pairs, equivalent_pairs, lti_systems
+from audit.structure.minimal import minimal_realization
+from audit.verdict.compare import Options, compare_models, compare_pair, overall_verdict
 
-RTOL = 1e-5  # the default audit tolerance (audit.evidence.DEFAULT_RTOL)
+RTOL = 1e-5  # the default audit tolerance (audit.evidence.record.DEFAULT_RTOL)
 OPTS = Options(rtol=RTOL, escalation_seconds=2.0)
 
 # Moderate systems: the properties must hold here; the stress campaign maps the limits.
@@ -120,8 +120,8 @@ def test_verdict_is_symmetric(pair) -> None:
 def test_command_line_verdict_does_not_depend_on_model_order(pair, third_differs: bool,
                                                               data: st.DataObject) -> None:
     from audit.cli import main
-    from audit.loading import document_from_realization, dump_model_document
-    from audit.strategies import different_pair
+    from audit.documents.loading import document_from_realization, dump_model_document
+    from audit.workflows.strategies import different_pair
 
     third = different_pair(pair.spec, relative_amount=1e-2, seed=pair.seed).second \
         if third_differs else pair.first
@@ -142,7 +142,7 @@ def test_command_line_verdict_does_not_depend_on_model_order(pair, third_differs
 
 @given(equivalent_pairs(max_order=4, max_spread_decades=1.0))
 def test_library_verdict_does_not_depend_on_model_order(pair) -> None:
-    from audit.strategies import different_pair
+    from audit.workflows.strategies import different_pair
 
     third = different_pair(pair.spec, relative_amount=1e-2, seed=pair.seed).second
     results = {overall_verdict(compare_models(list(p), options=OPTS))

@@ -15,7 +15,7 @@ import pytest
 
 from audit.errors import IncompatibleModelsError, InvalidModelError
 from audit.pytest_plugin import assert_same_system
-from audit.realization import Realization
+from audit.core.realization import Realization
 
 pytest_plugins = ["pytester"]
 

@@ -14,12 +14,12 @@ import pytest
 
 from audit.cli import main
 from audit.commands.convert import FORM_NAMES
-from audit.conversions import realization_from_transfer_function
-from audit.discretization import check_discretization_claim
-from audit.forms import jordan_form
-from audit.realization import Realization
-from audit.report import CAUTION, compare_report, render_compare_text
-from audit.verdict import Options, compare_models, overall_verdict
+from audit.core.conversions import realization_from_transfer_function
+from audit.dynamics.discretization import check_discretization_claim
+from audit.forms.catalogue import jordan_form
+from audit.core.realization import Realization
+from audit.reports.shapes import CAUTION, compare_report, render_compare_text
+from audit.verdict.compare import Options, compare_models, overall_verdict
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "fixtures" / "demo"
@@ -60,7 +60,7 @@ def test_gain_change_is_reported_in_db_with_both_dc_gains(capsys) -> None:
 def test_phase_difference_in_degrees_matches_an_independent_evaluation() -> None:
     import scipy.signal
 
-    from audit.trade_units import differences_in_trade_units
+    from audit.reports.trade_units import differences_in_trade_units
 
     # a heated-enclosure zone model and a copy with a 0.5 s transport-free lag added by
     # mistake: 1 / (40 s + 1) vs 1 / ((40 s + 1)(0.5 s + 1))

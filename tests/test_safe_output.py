@@ -1,4 +1,4 @@
-"""The output rule and the plain-text helpers (audit.safe_output), and YAML 1.2 reading."""
+"""The output rule and the plain-text helpers (audit.reports.safe_output), and YAML 1.2 reading."""
 
 from __future__ import annotations
 
@@ -11,8 +11,8 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from audit.loading import _parse_yaml
-from audit.safe_output import (
+from audit.documents.loading import _parse_yaml
+from audit.reports.safe_output import (
     OutputRefusedError,
     markdown_text,
     new_output_directory,
@@ -40,7 +40,7 @@ def test_yaml_scalars_follow_the_1_2_core_schema(text: str, expected: object) ->
 
 def test_yaml_base_60_sample_period_is_refused_with_the_value(tmp_path: Path) -> None:
     from audit.errors import InvalidModelError
-    from audit.loading import load_model_document
+    from audit.documents.loading import load_model_document
 
     path = tmp_path / "belt.yaml"
     path.write_text("lti_model: 1\nname: belt\nsample_period: 1:30\n"

@@ -16,9 +16,9 @@ import flint
 import numpy as np
 import pytest
 
-from audit.frequency import TransferEvaluator
-from audit.loading import load_realization
-from audit.realization import Realization
+from audit.evidence.frequency import TransferEvaluator
+from audit.documents.loading import load_realization
+from audit.core.realization import Realization
 
 DATA = Path(__file__).resolve().parent.parent / "benchmarks" / "data"
 

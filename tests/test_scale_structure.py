@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 import slycot
 
-from audit.realization import Realization
-from audit.structure import controllable_staircase, minimal_realization
+from audit.core.realization import Realization
+from audit.structure.minimal import controllable_staircase, minimal_realization
 
 
 def _non_minimal(seed: int, n_min: int, n_hidden: int, io: tuple[int, int]) -> Realization:

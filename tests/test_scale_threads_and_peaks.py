@@ -15,9 +15,9 @@ import pytest
 import slycot
 from threadpoolctl import threadpool_info
 
-from audit import _threads
-from audit.loading import load_realization
-from audit.norms import peak_gain
+from audit.core import threads as _threads
+from audit.documents.loading import load_realization
+from audit.evidence.peak_gain import peak_gain
 
 DATA = Path(__file__).resolve().parent.parent / "benchmarks" / "data"
 
@@ -90,7 +90,7 @@ def test_stop_above_skips_the_eigenvalue_tests_only_when_proven() -> None:
     # (closed form, common practice)
     import numpy as np
 
-    from audit.realization import Realization
+    from audit.core.realization import Realization
 
     zeta, w0 = 0.05, 3.0
     r = Realization.from_arrays([[0.0, 1.0], [-w0**2, -2 * zeta * w0]], [[0.0], [w0**2]],

@@ -7,8 +7,8 @@ from pathlib import Path
 
 import pytest
 
-from audit import schema_export
-from audit.documents import CLAIMED_FORMS, REPRESENTATIONS
+from audit.documents import schema_export
+from audit.documents.schema import CLAIMED_FORMS, REPRESENTATIONS
 
 SCHEMA_DIR = Path(__file__).resolve().parent.parent / "schemas"
 
@@ -16,10 +16,10 @@ SCHEMA_DIR = Path(__file__).resolve().parent.parent / "schemas"
 @pytest.mark.parametrize("filename", sorted(schema_export.SCHEMAS))
 def test_registered_schema_file_is_in_sync(filename: str) -> None:
     path = SCHEMA_DIR / filename
-    assert path.is_file(), f"{path} missing: run python -m audit.schema_export"
+    assert path.is_file(), f"{path} missing: run python -m audit.documents.schema_export"
     expected = schema_export.render_schema(schema_export.SCHEMAS[filename]())
     assert path.read_text(encoding="utf-8") == expected, (
-        f"{path} is out of date: run python -m audit.schema_export")
+        f"{path} is out of date: run python -m audit.documents.schema_export")
 
 
 def test_check_mode_on_the_repository_passes() -> None:

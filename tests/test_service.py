@@ -241,7 +241,7 @@ def test_unaccepted_unstable_hidden_mode_fails_the_submission_without_a_claim(sv
 
 
 def test_bandwidth_closed_forms_and_python_control() -> None:
-    from audit.realization import Realization
+    from audit.core.realization import Realization
 
     a = 7.0
     first = Realization.from_arrays([[-a]], [[a]], [[1.0]], [[0.0]])

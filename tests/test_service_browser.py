@@ -64,7 +64,7 @@ def test_report_page_shows_plots_in_chromium(tmp_path: Path) -> None:
             app.state.dispatcher.close()
     dom = proc.stdout
     assert proc.returncode == 0, proc.stderr[-2000:]
-    from audit.html_report import PLOT_IDS
+    from audit.reports.html_page import PLOT_IDS
 
     for plot in PLOT_IDS:
         assert f'id="{plot}"' in dom
@@ -95,10 +95,10 @@ def test_screenshot_of_a_real_compare_run(tmp_path: Path) -> None:
 
 def test_click_on_a_figure_opens_the_enlarged_view(tmp_path: Path) -> None:
     """The page's inline zoom script works offline in a real browser (no network)."""
-    from audit.html_report import render_compare_html
-    from audit.loading import load_realization
-    from audit.report import compare_report
-    from audit.verdict import Options, compare_models, overall_verdict
+    from audit.reports.html_page import render_compare_html
+    from audit.documents.loading import load_realization
+    from audit.reports.shapes import compare_report
+    from audit.verdict.compare import Options, compare_models, overall_verdict
 
     models = [load_realization(DEMO / "conveyor_drive_reference.json"),
               load_realization(DEMO / "conveyor_drive_gain_slip.json")]

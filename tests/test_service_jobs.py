@@ -54,12 +54,12 @@ def _set(s: Service, audit_id: str, **values: Any) -> None:
 # ------------------------------------------------------------------ sizes first
 def test_sizes_are_checked_on_the_document_before_any_conversion(
         make: Any, monkeypatch: pytest.MonkeyPatch) -> None:
-    import audit.loading
+    import audit.documents.loading
 
     def no_conversion(*args: Any, **kwargs: Any) -> Any:
         raise AssertionError("a document was converted before its size was checked")
 
-    monkeypatch.setattr(audit.loading, "realization_from_document", no_conversion)
+    monkeypatch.setattr(audit.documents.loading, "realization_from_document", no_conversion)
     s = make(start_jobs=False)
     # 2000 poles in one zeros-poles-gain channel (the 44 KB document)
     poles = [[-1.0 - k * 1e-3, 0.0] for k in range(2000)]

@@ -53,7 +53,7 @@ with warnings.catch_warnings():
 def test_api_conforms_to_its_schema(case: "schemathesis.Case") -> None:
     # positive_data_acceptance is excluded on purpose: the schema of a model document
     # inside a submission is an open object (documents are validated by
-    # audit.documents, whose cross-field rules -- matrix shapes, exactly one
+    # audit.documents.schema, whose cross-field rules -- matrix shapes, exactly one
     # representation -- JSON Schema cannot express), so schema-valid requests are
     # legitimately rejected with 422 and the CLI's message.
     from schemathesis.checks import positive_data_acceptance

@@ -1,4 +1,4 @@
-"""Tests for audit.similarity: recovering T with A2 = T A1 T^-1, B2 = T B1, C2 = C1 T^-1.
+"""Tests for audit.evidence.similarity: recovering T with A2 = T A1 T^-1, B2 = T B1, C2 = C1 T^-1.
 
 The true T is drawn by the test (outside the code under test); every numeric assertion
 names its source and tolerance.
@@ -16,8 +16,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from audit.errors import IncompatibleModelsError, InvalidModelError
-from audit.realization import Realization, similarity_transformed
-from audit.similarity import similarity_transform_between
+from audit.core.realization import Realization, similarity_transformed
+from audit.evidence.similarity import similarity_transform_between
 
 
 def _random_system(rng, n, m, p, dt=None) -> Realization:
@@ -129,7 +129,7 @@ def test_routes_for_larger_order(route):
     r2 = similarity_transformed(r1, t_true)
     if route == "krylov_lsqr":
         # force the iterative route: a lsqr_limit above n and a modal route that fails
-        import audit.similarity as sim
+        import audit.evidence.similarity as sim
 
         original = sim._modal_route
         sim._modal_route = lambda a, b: np.zeros((35, 35))

@@ -19,10 +19,10 @@ import scipy.linalg
 import scipy.sparse as sp
 
 from audit.cli import main
-from audit.documents import validate_model_document
+from audit.documents.schema import validate_model_document
 from audit.errors import InvalidModelError
-from audit.loading import load_model_document, realization_from_document
-from audit.sparse_models import (
+from audit.documents.loading import load_model_document, realization_from_document
+from audit.documents.sparse import (
     SPARSE_ROUTE_MIN_ORDER,
     SparseRealization,
     compare_sparse_pair,
@@ -257,7 +257,7 @@ def test_balanced_truncation_reduced_model_at_small_size():
     sum of the discarded Hankel singular values)."""
     import control
 
-    from audit.realization import Realization
+    from audit.core.realization import Realization
 
     small = reheating_bar(200)
     full = control.ss(small.a.toarray(), small.b, small.c, small.d)
@@ -311,7 +311,7 @@ def test_cli_compare_takes_the_sparse_route(capsys, tmp_path, bar):
 
 
 def test_dense_only_commands_refuse_sparse_models_above_the_dense_limit():
-    from audit.documents import MAX_ORDER
+    from audit.documents.schema import MAX_ORDER
 
     big = reheating_bar(MAX_ORDER + 1, name="long bar")
     doc = validate_model_document(as_document(big))

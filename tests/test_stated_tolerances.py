@@ -24,12 +24,12 @@ import scipy.signal
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from audit.band_peak import band_limited_peak, check_band
+from audit.evidence.band_peak import band_limited_peak, check_band
 from audit.cli import main
 from audit.errors import InvalidModelError
-from audit.realization import Realization
-from audit.tolerances import parse_channel_tolerance, resolve_channel_tolerances
-from audit.verdict import Options, compare_pair
+from audit.core.realization import Realization
+from audit.evidence.tolerances import parse_channel_tolerance, resolve_channel_tolerances
+from audit.verdict.compare import Options, compare_pair
 
 ROOT = Path(__file__).resolve().parent.parent
 SCHEMAS = ROOT / "schemas"
@@ -301,7 +301,7 @@ def test_cli_negative_atol_is_a_usage_error(tmp_path, capsys):
 
 
 def test_manifest_claim_with_stated_tolerances(tmp_path):
-    from audit.manifest import evaluate_claims, load_claims_manifest
+    from audit.workflows.manifest import evaluate_claims, load_claims_manifest
 
     r1, r2 = _two_by_two(1e-3)
     _doc(tmp_path, "plant", r1)
@@ -326,7 +326,7 @@ def test_manifest_claim_with_stated_tolerances(tmp_path):
     ('channel_rtol = {"0:0" = 3.0}\n', "relative tolerance between 0 and 1"),
 ])
 def test_manifest_bad_stated_tolerances_are_located_errors(tmp_path, text, fragment):
-    from audit.manifest import load_claims_manifest
+    from audit.workflows.manifest import load_claims_manifest
 
     (tmp_path / "lti-audit.toml").write_text(
         '[[claim]]\nmodels = ["a.json", "b.json"]\nexpect = "equivalent"\n' + text)
@@ -336,7 +336,7 @@ def test_manifest_bad_stated_tolerances_are_located_errors(tmp_path, text, fragm
 
 
 def test_manifest_stated_tolerances_only_on_expect_claims(tmp_path):
-    from audit.manifest import load_claims_manifest
+    from audit.workflows.manifest import load_claims_manifest
 
     (tmp_path / "lti-audit.toml").write_text('[[claim]]\nmodels = ["a.json"]\nform = "modal"\natol = 1.0\n')
     with pytest.raises(InvalidModelError, match="apply to expect claims"):

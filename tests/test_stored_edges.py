@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from audit.errors import InvalidModelError
-from audit.evidence import choose_contour
-from audit.loading import realization_from_document
+from audit.evidence.record import choose_contour
+from audit.documents.loading import realization_from_document
 
 from .test_stored_references import ss_doc, tf_doc, truth, verdict_of, factored_doc
 

@@ -17,8 +17,8 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from audit.loading import parse_model_document, realization_from_document
-from audit.verdict import compare_pair
+from audit.documents.loading import parse_model_document, realization_from_document
+from audit.verdict.compare import compare_pair
 
 
 @st.composite

@@ -18,8 +18,8 @@ from typing import Any
 import numpy as np
 import pytest
 
-from audit.loading import parse_model_document, realization_from_document
-from audit.verdict import compare_pair
+from audit.documents.loading import parse_model_document, realization_from_document
+from audit.verdict.compare import compare_pair
 
 flint = pytest.importorskip("flint")
 

@@ -1,4 +1,4 @@
-"""Tests of the public hypothesis strategies (audit.strategies).
+"""Tests of the public hypothesis strategies (audit.workflows.strategies).
 
 Independent references: numpy/scipy eigenvalues and SVD ranks, mpmath extended-precision
 evaluation of transfer functions, python-control ``linfnorm`` (SLICOT AB13DD via slycot).
@@ -16,8 +16,8 @@ from hypothesis import find, given
 from hypothesis import strategies as st
 
 from audit.errors import InvalidModelError
-from audit.realization import Realization
-from audit.strategies import (
+from audit.core.realization import Realization
+from audit.workflows.strategies import (
     SystemSpec,
     build_system,
     different_pair,

@@ -1,4 +1,4 @@
-"""The stress campaign engine (audit.stress) and the ``stress`` / ``promote`` commands."""
+"""The stress campaign engine (audit.workflows.stress) and the ``stress`` / ``promote`` commands."""
 
 from __future__ import annotations
 
@@ -8,11 +8,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from audit import stress
+from audit.workflows import stress
 from audit.cli import main
 from audit.errors import InvalidModelError
-from audit.realization import Realization
-from audit.strategies import SystemSpec
+from audit.core.realization import Realization
+from audit.workflows.strategies import SystemSpec
 
 FAST = ("lti-audit: modal form", "scipy: transfer-function round trip", "verdict: different by construction")
 
@@ -160,7 +160,7 @@ def test_third_party_pipeline_matches_scipy_directly() -> None:
     import scipy.signal
 
     spec = SystemSpec(order=3, seed=1)
-    from audit.strategies import build_system
+    from audit.workflows.strategies import build_system
 
     r = build_system(spec)
     ref, conv = stress.pipelines()["scipy: transfer-function round trip"].run(r, spec)
@@ -194,7 +194,7 @@ def test_stress_out_must_be_empty_or_replaced_explicitly(tmp_path: Path, capsys)
 
 
 def test_campaign_reports_carry_the_caution(tmp_path: Path) -> None:
-    from audit.report import CAUTION
+    from audit.reports.shapes import CAUTION
 
     result = stress.run_campaign(budget=1, seed=0, settings=_settings(FAST[2]))
     paths = stress.write_reports(result, tmp_path / "c")

@@ -1,4 +1,4 @@
-"""Tests of audit.structure: staircases, minimal realization, Kalman decomposition,
+"""Tests of audit.structure.minimal: staircases, minimal realization, Kalman decomposition,
 hidden modes and transmission zeros.
 
 Every numeric assertion names its source. Outside references used here:
@@ -23,10 +23,10 @@ import slycot
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from audit import structure
+from audit.structure import minimal as structure
 from audit.errors import InvalidModelError, NumericalTroubleError
-from audit.realization import Realization, similarity_transformed
-from audit.structure import (
+from audit.core.realization import Realization, similarity_transformed
+from audit.structure.minimal import (
     controllable_staircase,
     hidden_modes,
     invariant_zeros,
@@ -42,7 +42,7 @@ from audit.structure import (
 
 
 def transfer_at(r: Realization, s: complex) -> np.ndarray:
-    """C (sI - A)^-1 B + D by a direct numpy solve (independent of audit.structure)."""
+    """C (sI - A)^-1 B + D by a direct numpy solve (independent of audit.structure.minimal)."""
     n = r.order
     if n == 0:
         return np.array(r.d, dtype=complex)
@@ -603,8 +603,8 @@ def test_order_zero_and_no_inputs():
 @pytest.mark.parametrize(
     "call, fragment",
     [
-        (lambda: minimal_realization("not a model"), "r: expected an audit.realization.Realization, got str"),
-        (lambda: controllable_staircase(np.eye(2)), "r: expected an audit.realization.Realization, got ndarray"),
+        (lambda: minimal_realization("not a model"), "r: expected an audit.core.realization.Realization, got str"),
+        (lambda: controllable_staircase(np.eye(2)), "r: expected an audit.core.realization.Realization, got ndarray"),
         (lambda: minimal_realization(ab08nd_example(), tol=0.0), "tol: expected a relative tolerance in (0, 1), got tol=0.0"),
         (lambda: kalman_decomposition(ab08nd_example(), tol=float("nan")), "tol: expected a relative tolerance"),
         (lambda: observable_staircase(ab08nd_example(), tol=2.0), "tol: expected a relative tolerance"),

@@ -16,12 +16,12 @@ import math
 import numpy as np
 import pytest
 
-import audit.verdict as verdict_module
+import audit.verdict.compare as verdict_module
 from audit.cli import main
 from audit.errors import NumericalTroubleError
-from audit.realization import Realization
-from audit.timedomain import response_horizon, step_response
-from audit.verdict import compare_pair
+from audit.core.realization import Realization
+from audit.dynamics.time_responses import response_horizon, step_response
+from audit.verdict.compare import compare_pair
 
 _ZOH = "zero-order-hold"
 
@@ -154,8 +154,8 @@ def test_decisive_bug_is_inconclusive_not_a_crash(monkeypatch, tmp_path, capsys)
 
 
 def test_discretization_claim_that_raises_is_not_computed(monkeypatch):
-    import audit.discretization as disc_module
-    from audit.verdict import compare_discretized
+    import audit.dynamics.discretization as disc_module
+    from audit.verdict.compare import compare_discretized
 
     monkeypatch.setattr(disc_module, "check_discretization_claim", _boom)
     # 1 / (s + 1) and its zero-order-hold sampling at T = 0.1: pole exp(-0.1), gain 1 - exp(-0.1)
@@ -170,8 +170,8 @@ def test_discretization_claim_that_raises_is_not_computed(monkeypatch):
 
 
 def test_sample_period_ratio_that_raises_still_reports_different(monkeypatch):
-    import audit.discretization as disc_module
-    from audit.verdict import compare_sample_periods
+    import audit.dynamics.discretization as disc_module
+    from audit.verdict.compare import compare_sample_periods
 
     monkeypatch.setattr(disc_module, "detect_sample_period_mismatch", _boom)
     r1 = Realization.from_arrays([[0.5]], [[1.0]], [[1.0]], [[0.0]], 0.1)
@@ -182,9 +182,9 @@ def test_sample_period_ratio_that_raises_still_reports_different(monkeypatch):
 
 
 def test_minimal_realization_that_raises_leaves_the_verdict_standing(monkeypatch):
-    from audit.manifest import coordinate_change
+    from audit.workflows.manifest import coordinate_change
 
-    from audit.realization import similarity_transformed
+    from audit.core.realization import similarity_transformed
 
     monkeypatch.setattr(verdict_module, "minimal_order_evidence", _boom)
     r1, _ = _pair()

@@ -1,14 +1,14 @@
 """``lti-audit check [MANIFEST] [--against REF]``: the pre-merge check.
 
 Runs every claim of the claims manifest (default ``lti-audit.toml`` in the current
-directory; see :mod:`audit.manifest`) and, with ``--against REF``, audits every model
+directory; see :mod:`audit.workflows.manifest`) and, with ``--against REF``, audits every model
 file changed between the git revision ``REF`` and the working tree (see
-:mod:`audit.gitbase`). Without a manifest file, ``--against`` uses the default file
+:mod:`audit.workflows.gitbase`). Without a manifest file, ``--against`` uses the default file
 globs and the current directory.
 
 Output: ``--format text|json|junit|markdown`` on stdout; ``--junit FILE``,
 ``--markdown FILE`` and ``--json FILE`` also write those reports under the tool's output
-rule (:mod:`audit.safe_output`: atomically, never through a symbolic link, never over a
+rule (:mod:`audit.reports.safe_output`: atomically, never through a symbolic link, never over a
 model file or the manifest, and over an existing report only with ``--overwrite``). Exit status: 0 every claim holds and no changed file changed behaviour;
 1 a claim fails or a file's behaviour changed; 2 invalid input (bad manifest, missing or
 invalid model file, unknown REF) or usage; 3 otherwise inconclusive.
@@ -23,7 +23,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-from ._options import relative_tolerance, seconds
+from audit.commands._options import relative_tolerance, seconds
 
 NAME = "check"
 HELP = "check a claims manifest (lti-audit.toml) and, with --against REF, the model files changed since a git revision"
@@ -57,7 +57,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the check; return the exit status (see the module docstring)."""
-    from ..ci_outputs import (
+    from audit.reports.ci_outputs import (
         CheckRun,
         render_check_json,
         render_check_text,
@@ -65,14 +65,14 @@ def run(args: argparse.Namespace) -> int:
         render_markdown,
         write_output,
     )
-    from ..manifest import (
+    from audit.workflows.manifest import (
         DEFAULT_MANIFEST_NAME,
         default_manifest,
         evaluate_claims,
         load_claims_manifest,
     )
 
-    from ..ci_outputs import check_report_target
+    from audit.reports.ci_outputs import check_report_target
 
     for option in ("junit", "markdown", "json"):  # refuse before the audits run
         target = getattr(args, option)
@@ -95,7 +95,7 @@ def run(args: argparse.Namespace) -> int:
     commit = None
     skipped: tuple[str, ...] = ()
     if args.against is not None:
-        from ..gitbase import classify_changes
+        from audit.workflows.gitbase import classify_changes
 
         changes, commit, skipped = classify_changes(
             manifest, args.against, rtol=args.rtol, escalation_seconds=args.escalation_seconds)

@@ -11,12 +11,12 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ._options import relative_tolerance
+from audit.commands._options import relative_tolerance
 
 NAME = "convert"
 HELP = "produce a structured form of a model, audited against the source"
 
-# the names of audit.documents.ClaimedForm (kept here so that --help needs no pydantic;
+# the names of audit.documents.schema.ClaimedForm (kept here so that --help needs no pydantic;
 # tests/test_cli.py checks that the two lists agree)
 FORM_NAMES = (
     "controllable_companion",
@@ -45,22 +45,22 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import hashlib
 
-    from ..errors import InvalidModelError
-    from ..evidence import DEFAULT_RTOL
-    from ..forms import FORMS
-    from ..loading import (
+    from audit.errors import InvalidModelError
+    from audit.evidence.record import DEFAULT_RTOL
+    from audit.forms.catalogue import FORMS
+    from audit.documents.loading import (
         document_from_realization,
         dump_model_document,
         load_model_document,
         realization_from_document,
         render_model_document,
     )
-    from ..report import CAUTION, package_version
-    from ..verdict import Options, compare_pair
+    from audit.reports.shapes import CAUTION, package_version
+    from audit.verdict.compare import Options, compare_pair
 
     rtol = DEFAULT_RTOL if args.rtol is None else float(args.rtol)
     if args.output:
-        from ..safe_output import check_new_output
+        from audit.reports.safe_output import check_new_output
 
         check_new_output(args.output, flag="")  # the output rule, checked before any work
     doc = load_model_document(args.model)
@@ -133,7 +133,7 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-# forms whose claim `inspect` and `check` verify by pattern (audit.forms.check_claimed_form);
+# forms whose claim `inspect` and `check` verify by pattern (audit.forms.catalogue.check_claimed_form);
 # the Kalman and staircase forms rest on rank decisions a pattern check cannot repeat
 PATTERN_CHECKED_FORMS = ("controllable_companion", "observable_companion", "modal", "jordan",
                          "balanced")
@@ -141,7 +141,7 @@ PATTERN_CHECKED_FORMS = ("controllable_companion", "observable_companion", "moda
 
 def _checkable_claim(form: str, new: object, sizes: object) -> tuple[str | None, str]:
     """The ``claimed_form`` to write (only one that lti-audit itself confirms) and a note."""
-    from ..forms import check_claimed_form
+    from audit.forms.catalogue import check_claimed_form
 
     if form not in PATTERN_CHECKED_FORMS:
         return None, (f"no claimed_form written: the {form} form rests on rank decisions that "

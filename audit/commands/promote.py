@@ -74,7 +74,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _fail(message: str) -> int:
-    from ..safe_output import terminal_text
+    from audit.reports.safe_output import terminal_text
 
     sys.stderr.write(terminal_text(f"lti-audit: error: {message}\n"))
     return 2
@@ -103,8 +103,8 @@ def _regular_file(path: Path, what: str) -> None:
 
 
 def _read_manifest(directory: Path) -> dict[str, Any]:
-    from ..errors import AuditError
-    from ..loading import read_input_bytes
+    from audit.errors import AuditError
+    from audit.documents.loading import read_input_bytes
 
     path = directory / "manifest.json"
     if not os.path.lexists(path):
@@ -168,8 +168,8 @@ def _validated_files(directory: Path, manifest: dict[str, Any]) -> dict[str, str
 
 
 def _promote(args: argparse.Namespace) -> int:
-    from ..errors import AuditError
-    from ..safe_output import OutputRefusedError, publish_directory
+    from audit.errors import AuditError
+    from audit.reports.safe_output import OutputRefusedError, publish_directory
 
     source = Path(args.source)
     if not os.path.lexists(source):
@@ -177,7 +177,7 @@ def _promote(args: argparse.Namespace) -> int:
     directory = source if source.is_dir() else source.parent
     manifest = _read_manifest(directory)
     files = _validated_files(directory, manifest)
-    from ..stress import slug
+    from audit.workflows.stress import slug
 
     case = manifest.get("case", 0)
     name = args.name or f"{slug(manifest['pipeline'])}-case{case}"
@@ -221,7 +221,7 @@ def _promote(args: argparse.Namespace) -> int:
     except (OSError, _Refused) as exc:
         shutil.rmtree(staging, ignore_errors=True)
         raise _Refused(f"{target}: not promoted ({exc}); nothing was written") from None
-    from ..safe_output import terminal_text
+    from audit.reports.safe_output import terminal_text
 
     sys.stdout.write(terminal_text(f"promoted {manifest['pipeline']} counterexample to {target}\n"
                                    f"expected outcome recorded: {json.dumps(expected)}\n"))
@@ -230,7 +230,7 @@ def _promote(args: argparse.Namespace) -> int:
 
 def _copy_regular_file(src: Path, dst: Path) -> None:
     """Copy bytes of a regular file without following a link swapped in meanwhile."""
-    from ..loading import max_input_bytes
+    from audit.documents.loading import max_input_bytes
 
     flags = os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_NONBLOCK", 0)
     fd = os.open(src, flags)
@@ -247,8 +247,8 @@ def _copy_regular_file(src: Path, dst: Path) -> None:
 def _expected_outcome(directory: Path, manifest: dict[str, Any],
                       files: dict[str, str]) -> dict[str, Any]:
     """What lti-audit says now: the verdict on the stored pair and the pipeline outcome."""
-    from ..loading import load_realization
-    from ..verdict import Options, compare_pair
+    from audit.documents.loading import load_realization
+    from audit.verdict.compare import Options, compare_pair
 
     expected: dict[str, Any] = {"pipeline_outcome": manifest.get("outcome")}
     if "reference" in files and "converted" in files:

@@ -11,7 +11,7 @@ from __future__ import annotations
 import argparse
 import os
 
-from ._options import positive_number, whole_number
+from audit.commands._options import positive_number, whole_number
 
 NAME = "serve"
 HELP = "run the audit HTTP service with stored audit history"
@@ -56,11 +56,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import uvicorn
 
-    from ..service.app import DEFAULT_MAX_BODY_BYTES, DEFAULT_MAX_ORDER, create_app
-    from ..service.db import default_database_url
+    from audit.service.app import DEFAULT_MAX_BODY_BYTES, DEFAULT_MAX_ORDER, create_app
+    from audit.service.db import default_database_url
 
     if not 0 < args.port < 65536:
-        from ..errors import InvalidModelError
+        from audit.errors import InvalidModelError
 
         raise InvalidModelError(f"--port: got {args.port}, expected 1..65535", field="port")
     options = {name: value for name, value in (

@@ -6,7 +6,7 @@ the verdict), audits each result with the verdict, shrinks failures, and writes
 ``campaign.json``, ``campaign.md``, ``envelope.png`` and ``counterexamples/`` to ``--out``.
 
 Exit status: 0 no pipeline failed; 1 some pipeline failed (counterexamples written);
-2 invalid usage.  The numerics live in :mod:`audit.stress`; this module only parses
+2 invalid usage.  The numerics live in :mod:`audit.workflows.stress`; this module only parses
 arguments, shows progress on stderr and writes files.
 """
 
@@ -18,7 +18,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-from ._options import positive_number, whole_number
+from audit.commands._options import positive_number, whole_number
 
 NAME = "stress"
 HELP = "stress model conversions with random systems; report pass rates, envelopes, counterexamples"
@@ -102,14 +102,14 @@ class _Progress:
 
 
 def run(args: argparse.Namespace) -> int:
-    from .. import stress
+    from audit.workflows import stress
 
     if args.list_pipelines:
         for name, p in stress.pipelines().items():
             sys.stdout.write(f"{name}\t{p.description}\n")
         return 0
     out = Path(args.out)
-    from ..safe_output import new_output_directory
+    from audit.reports.safe_output import new_output_directory
 
     if args.replace:
         problem = _remove_previous_campaign(out)
@@ -157,7 +157,7 @@ def _remove_previous_campaign(out: Path) -> str | None:
     """``--replace``: delete ``out`` if it holds a previous campaign (a ``campaign.json``).
 
     Any other non-empty folder is refused (returns the problem); links and files are left
-    to the output rule (:func:`audit.safe_output.new_output_directory`) to refuse.
+    to the output rule (:func:`audit.reports.safe_output.new_output_directory`) to refuse.
     """
     import shutil
 

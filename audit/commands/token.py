@@ -31,8 +31,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..service.db import default_database_url, open_database
-    from ..service.tokens import create_token, list_tokens, revoke_token
+    from audit.service.db import default_database_url, open_database
+    from audit.service.tokens import create_token, list_tokens, revoke_token
 
     _, sessions = open_database(args.database or default_database_url())
     with sessions() as session:

@@ -18,6 +18,6 @@ __all__ = ["create_app"]
 
 def create_app(database_url: str, **kwargs: Any) -> Any:
     """Build the service application; see :func:`audit.service.app.create_app`."""
-    from .app import create_app as _create_app
+    from audit.service.app import create_app as _create_app
 
     return _create_app(database_url, **kwargs)

@@ -61,10 +61,10 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.exc import TimeoutError as PoolTimeoutError
 from sqlalchemy.orm import Session, defer, selectinload
 
-from ..errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
-from .db import ACTIVE_STATES, Audit, AuditDocument, open_database, utc_now
-from .intake import DEFAULT_MAX_CHANNELS, check_documents, check_sizes
-from .jobs import (
+from audit.errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
+from audit.service.db import ACTIVE_STATES, Audit, AuditDocument, open_database, utc_now
+from audit.service.intake import DEFAULT_MAX_CHANNELS, check_documents, check_sizes
+from audit.service.jobs import (
     DEFAULT_JOB_ATTEMPTS,
     DEFAULT_JOB_SECONDS,
     DEFAULT_QUEUE_SIZE,
@@ -74,7 +74,7 @@ from .jobs import (
     JobSettings,
     compute_audit,
 )
-from .submission import (
+from audit.service.submission import (
     ParsedSubmission,
     Submission,
     Tolerances,
@@ -82,7 +82,7 @@ from .submission import (
     parse_submission,
     tolerances_for,
 )
-from .tokens import Principal, authenticate
+from audit.service.tokens import Principal, authenticate
 
 __all__ = ["DEFAULT_MAX_BODY_BYTES", "DEFAULT_MAX_ORDER", "create_app"]
 
@@ -219,7 +219,7 @@ class _SecurityHeaders:
     """Pure ASGI middleware adding the Content-Security-Policy to every response."""
 
     def __init__(self, app: Any) -> None:
-        from ..html_report import zoom_script_csp_source
+        from audit.reports.html_page import zoom_script_csp_source
 
         self.app = app
         # the report page's one fixed zoom script may run, by its hash; nothing else
@@ -400,7 +400,7 @@ def create_app(
                         ("job_attempts", job_attempts), ("db_pool_size", db_pool_size)):
         if not isinstance(value, int) or isinstance(value, bool) or value < 1:
             raise InvalidModelError(f"{name}={value!r}: expected an integer >= 1", field=name)
-    from ..report import package_version
+    from audit.reports.shapes import package_version
 
     for name, fvalue in (("job_seconds", job_seconds), ("db_pool_timeout", db_pool_timeout)):
         if not isinstance(fvalue, (int, float)) or isinstance(fvalue, bool) or not fvalue > 0:
@@ -554,7 +554,7 @@ def create_app(
         }
 
     def holder_of(session: Session, row: Audit) -> str | None:
-        from .db import ApiToken
+        from audit.service.db import ApiToken
 
         if row.submitted_by is None:
             return None
@@ -860,7 +860,7 @@ def _state_page(row: Audit) -> str:
     """A small page for an audit that is not done (refreshes itself while in flight)."""
     import html
 
-    from ..report import CAUTION
+    from audit.reports.shapes import CAUTION
 
     refresh = '<meta http-equiv="refresh" content="5">' if row.status in ACTIVE_STATES else ""
     names = ", ".join(html.escape(str(n)) for n in row.model_names)
@@ -897,8 +897,8 @@ def _page_task(fields: dict[str, Any], max_order: int) -> str:
 
 
 def _render_page(row: Audit, reparse: Any) -> str:
-    from ..html_report import render_compare_html
-    from ..report import model_entry
+    from audit.reports.html_page import render_compare_html
+    from audit.reports.shapes import model_entry
 
     ps, _ = reparse(row)
     report = row.report

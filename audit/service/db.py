@@ -49,7 +49,7 @@ from sqlalchemy import (
 from sqlalchemy.engine import Engine
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship, sessionmaker
 
-from ..errors import AuditError
+from audit.errors import AuditError
 
 __all__ = [
     "ACTIVE_STATES",

@@ -10,7 +10,7 @@ here, in the web process, before the submission is stored:
    ``max(#poles, #zeros)`` -- or whose input or output count exceeds ``max_channels``.
    Nothing is converted, so a 2000-pole document is refused in microseconds.
 2. :func:`check_documents` validates every document with
-   :func:`audit.loading.parse_model_document` (pydantic; no conversion), checks the
+   :func:`audit.documents.loading.parse_model_document` (pydantic; no conversion), checks the
    ``claims.dc_gain`` shape, and checks that the models can be compared (input and
    output counts, time domains; a continuous reference with discrete models needs a
    discretization claim). The worker repeats the full check after conversion.
@@ -20,8 +20,8 @@ from __future__ import annotations
 
 from typing import Any
 
-from ..errors import IncompatibleModelsError, InvalidModelError
-from ..realization import SAMPLE_PERIOD_RTOL
+from audit.errors import IncompatibleModelsError, InvalidModelError
+from audit.core.realization import SAMPLE_PERIOD_RTOL
 
 __all__ = ["DEFAULT_MAX_CHANNELS", "check_documents", "check_sizes"]
 
@@ -111,8 +111,8 @@ def check_documents(sub: Any) -> list[dict[str, Any]]:
         Input/output counts or time domains differ and no discretization claim bridges
         a continuous reference and discrete models.
     """
-    from ..loading import parse_model_document
-    from .submission import canonical_sha256, check_claim_shapes, stated_tolerance_options
+    from audit.documents.loading import parse_model_document
+    from audit.service.submission import canonical_sha256, check_claim_shapes, stated_tolerance_options
 
     parsed: list[tuple[str, Any]] = []
     entries: list[dict[str, Any]] = []

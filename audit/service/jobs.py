@@ -45,8 +45,8 @@ import uuid
 from dataclasses import dataclass
 from typing import Any
 
-from ..errors import AuditError
-from .db import ACTIVE_STATES, Audit, open_database, utc_now
+from audit.errors import AuditError
+from audit.service.db import ACTIVE_STATES, Audit, open_database, utc_now
 
 __all__ = [
     "DEFAULT_JOB_ATTEMPTS",
@@ -98,7 +98,7 @@ class JobSettings:
 
 def error_code(exc: BaseException) -> str:
     """The service's error code of an audit error (same codes as the HTTP answers)."""
-    from ..errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
+    from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 
     if isinstance(exc, IncompatibleModelsError):
         return "incompatible_models"
@@ -123,7 +123,7 @@ def compute_audit(body: bytes, tolerances: dict[str, Any], max_order: int,
     AuditError
         The submission cannot be audited (the message says why).
     """
-    from .submission import Tolerances, parse_submission, run_audit
+    from audit.service.submission import Tolerances, parse_submission, run_audit
 
     ps = parse_submission(json.loads(body.decode("utf-8")), max_order=max_order)
     outcome = run_audit(ps, Tolerances.model_validate(tolerances), time_budget=time_budget)
@@ -177,7 +177,7 @@ def execute_job(audit_id: str, settings: JobSettings) -> str:
         ``done``, ``failed``, ``skipped`` (not in flight any more) or ``superseded``
         (another task stored the result first).
     """
-    from ..report import CAUTION, package_version
+    from audit.reports.shapes import CAUTION, package_version
 
     _lower_priority(settings.worker_niceness)
     sessions = _sessions(settings.database_url)

@@ -3,33 +3,33 @@
 A submission carries one or more model documents (``models``), an optional reference
 model (``reference``), and the supplier's claims. The audit
 
-1. validates every document with :func:`audit.loading.parse_model_document` (same
+1. validates every document with :func:`audit.documents.loading.parse_model_document` (same
    messages as the CLI; the source is ``models[i]`` or ``reference`` instead of a file
    name) and builds its realization;
-2. compares the models with :func:`audit.verdict.compare_models` -- against the
+2. compares the models with :func:`audit.verdict.compare.compare_models` -- against the
    reference when one is given, else against the first model. When the reference is
    continuous-time, the models are discrete-time and a discretization is claimed, the
    reference is first discretized with the claimed method at the models' sample period
-   (:func:`audit.discretization.discretize`) and that is compared;
+   (:func:`audit.dynamics.discretization.discretize`) and that is compared;
 3. checks each claim for each submitted model individually (never for the reference),
    each with its own outcome ``holds``, ``fails`` or ``not_checkable``:
 
    ``sample_period``   the document's sample period, relative tolerance 1e-9
-                       (:data:`audit.realization.SAMPLE_PERIOD_RTOL`); ``null`` claims
+                       (:data:`audit.core.realization.SAMPLE_PERIOD_RTOL`); ``null`` claims
                        continuous time;
-   ``discretization``  :func:`audit.discretization.check_discretization_claim` of the
+   ``discretization``  :func:`audit.dynamics.discretization.check_discretization_claim` of the
                        continuous reference against the model, tolerance ``rtol``;
-   ``claimed_form``    :func:`audit.forms.check_claimed_form` (pattern tolerance
+   ``claimed_form``    :func:`audit.forms.catalogue.check_claimed_form` (pattern tolerance
                        ``form_rtol``); a document's own ``claimed_form`` is checked too;
    ``dc_gain``         ``G(0)`` (continuous) or ``G(1)`` (discrete) from
-                       :func:`audit.inspection.inspect_model`, relative Frobenius-norm
+                       :func:`audit.verdict.inspection.inspect_model`, relative Frobenius-norm
                        difference <= ``claim_rtol``;
-   ``poles``           optimal one-to-one matching (:func:`audit.matching.match_points`)
+   ``poles``           optimal one-to-one matching (:func:`audit.evidence.matching.match_points`)
                        with every eigenvalue of A (or, when the counts differ, the poles
                        of the minimal part); largest relative distance <= ``claim_rtol``;
    ``bandwidth_rad_s`` see :func:`bandwidth`; relative difference <= ``claim_rtol``;
    ``stable``          ``true`` claims internal (asymptotic) stability of every mode,
-                       hidden ones included (:func:`audit.inspection.inspect_model`).
+                       hidden ones included (:func:`audit.verdict.inspection.inspect_model`).
 
 Bandwidth definition
 --------------------
@@ -37,7 +37,7 @@ The bandwidth is the smallest frequency ``w > 0`` at which the largest singular 
 the frequency response (for one input and one output: ``|G|``) has fallen to
 ``1/sqrt(2)`` of its DC value, i.e. 3.01 dB below the DC gain (the usual -3 dB definition;
 common practice, no source). It is
-found on the adaptive frequency grid of :func:`audit.frequency.adaptive_frequency_grid`
+found on the adaptive frequency grid of :func:`audit.evidence.frequency.adaptive_frequency_grid`
 (which in discrete time ends at the Nyquist frequency) and then refined by bisection in
 ``log w`` to a relative width of 1e-12. It is undefined (``None``) when the DC gain is
 zero or infinite (a pole at DC) or when the gain never falls that far on the grid.
@@ -57,9 +57,9 @@ from typing import Any, Literal
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
-from ..discretization_methods import DiscretizationMethod, accepted_methods_text, discretization_method
-from ..errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
-from ..realization import SAMPLE_PERIOD_RTOL, Realization
+from audit.dynamics.discretization_methods import DiscretizationMethod, accepted_methods_text, discretization_method
+from audit.errors import AuditError, IncompatibleModelsError, InvalidModelError, NumericalTroubleError
+from audit.core.realization import SAMPLE_PERIOD_RTOL, Realization
 
 __all__ = [
     "AuditOutcome",
@@ -88,7 +88,7 @@ DEFAULT_ESCALATION_SECONDS = 5.0
 keeps a request bounded. A submission can set 0..20 s."""
 
 FORM_RTOL = 1e-9
-"""Pattern tolerance of form claims (the default of :func:`audit.forms.check_claimed_form`)."""
+"""Pattern tolerance of form claims (the default of :func:`audit.forms.catalogue.check_claimed_form`)."""
 
 BANDWIDTH_BISECTION_RTOL = 1e-12
 MAX_MODELS = 16
@@ -201,7 +201,7 @@ class AuditOutcome:
     report : dict
         JSON-friendly (see :func:`run_audit`).
     compare_data : dict or None
-        The compare report (``audit.report.compare_report``) when models were compared.
+        The compare report (``audit.reports.shapes.compare_report``) when models were compared.
     compared : tuple of Realization
         The realizations of ``compare_data["models"]`` in order (for the HTML page).
     claims : tuple of dict
@@ -229,7 +229,7 @@ def canonical_sha256(document: Any) -> str:
 
 
 def _realization(doc_data: dict[str, Any], source: str, max_order: int) -> tuple[Realization, Any]:
-    from ..loading import parse_model_document, realization_from_document
+    from audit.documents.loading import parse_model_document, realization_from_document
 
     doc = parse_model_document(doc_data, source=source)
     if doc.stated_order > max_order:  # checked on the document, before any conversion
@@ -296,7 +296,7 @@ def _doc_entry(role: str, position: int, r: Realization, doc: Any, raw: Any) -> 
 
 def tolerances_for(sub: Submission) -> Tolerances:
     """The tolerances a new audit of ``sub`` uses (defaults filled in)."""
-    from ..evidence import DEFAULT_RTOL
+    from audit.evidence.record import DEFAULT_RTOL
 
     return Tolerances(
         rtol=DEFAULT_RTOL if sub.rtol is None else sub.rtol,
@@ -334,8 +334,8 @@ def stated_tolerance_options(values: Submission | Tolerances, sub: Submission, n
     the audit's stored tolerances in the job) as Options fields; channel names are those of
     the first compared document of ``sub`` (the reference, else models[0]). Bad values
     raise InvalidModelError (422)."""
-    from ..band_peak import check_band
-    from ..tolerances import parse_channel_tolerance, resolve_channel_tolerances
+    from audit.evidence.band_peak import check_band
+    from audit.evidence.tolerances import parse_channel_tolerance, resolve_channel_tolerances
 
     out: dict[str, Any] = {"atol": 0.0 if values.atol is None else values.atol}
     if values.band_rad_s is not None:
@@ -353,7 +353,7 @@ def stated_tolerance_options(values: Submission | Tolerances, sub: Submission, n
 
 # ------------------------------------------------------------------ bandwidth
 def _sigma_max_at(r: Realization, omegas: np.ndarray) -> np.ndarray:
-    from ..frequency import frequency_response
+    from audit.evidence.frequency import frequency_response
 
     g = frequency_response(r, omegas)
     return np.linalg.svd(g, compute_uv=False)[:, 0]
@@ -386,7 +386,7 @@ def bandwidth(r: Realization, *, rtol: float = BANDWIDTH_BISECTION_RTOL) -> floa
     >>> round(bandwidth(r), 9)
     4.0
     """
-    from ..frequency import adaptive_frequency_grid
+    from audit.evidence.frequency import adaptive_frequency_grid
 
     if not (0.0 < rtol < 1.0):
         raise InvalidModelError(f"rtol={rtol!r}: expected a number in (0, 1)", field="rtol")
@@ -431,11 +431,11 @@ def _pair(z: complex) -> list[float]:
 
 
 def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]:
-    from ..discretization import check_discretization_claim
-    from ..evidence import to_jsonable
-    from ..forms import check_claimed_form
-    from ..inspection import inspect_model
-    from ..matching import match_points
+    from audit.dynamics.discretization import check_discretization_claim
+    from audit.evidence.record import to_jsonable
+    from audit.forms.catalogue import check_claimed_form
+    from audit.verdict.inspection import inspect_model
+    from audit.evidence.matching import match_points
 
     claims = ps.submission.claims
     given = claims.model_fields_set
@@ -565,8 +565,8 @@ def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]
 def _internal_stability_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]:
     """One failing entry per unstable / marginal hidden or nearly hidden mode of a submitted
     model that the reference lacks (every such mode without a reference), holding when the
-    submission accepts it with a reason (:mod:`audit.internal_stability`)."""
-    from ..internal_stability import ModelModes, hidden_mode_problems, model_modes
+    submission accepts it with a reason (:mod:`audit.structure.internal_stability`)."""
+    from audit.structure.internal_stability import ModelModes, hidden_mode_problems, model_modes
 
     ref = (model_modes(ps.reference, label="the reference", rank_tol=tol.rank_tol)
            if ps.reference is not None else ModelModes("", (), {}, 0, True, None))
@@ -605,8 +605,8 @@ def compared_models(ps: ParsedSubmission) -> tuple[list[Realization], list[str]]
     NumericalTroubleError
         The claimed discretization of the reference cannot be computed.
     """
-    from ..discretization import discretize
-    from ..realization import check_comparable
+    from audit.dynamics.discretization import discretize
+    from audit.core.realization import check_comparable
 
     sub = ps.submission
     compared: list[Realization] = []
@@ -677,9 +677,9 @@ def run_audit(ps: ParsedSubmission, tol: Tolerances, *,
     NumericalTroubleError
         A comparison could not be computed.
     """
-    from ..evidence import to_jsonable
-    from ..report import CAUTION, compare_report, package_version
-    from ..verdict import Options, compare_pair, overall_verdict
+    from audit.evidence.record import to_jsonable
+    from audit.reports.shapes import CAUTION, compare_report, package_version
+    from audit.verdict.compare import Options, compare_pair, overall_verdict
 
     start = time.perf_counter()
     deadline = None if time_budget is None else start + time_budget

@@ -23,8 +23,8 @@ from typing import Any, Literal
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from ..errors import AuditError
-from .db import ApiToken, utc_now
+from audit.errors import AuditError
+from audit.service.db import ApiToken, utc_now
 
 __all__ = ["Principal", "TOKEN_PREFIX", "TokenError", "authenticate", "create_token",
            "list_tokens", "revoke_token", "token_sha256"]

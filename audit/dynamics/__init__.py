@@ -1,0 +1,1 @@
+"""Stage 3c, dynamics: discretization and exact time responses."""

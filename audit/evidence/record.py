@@ -1,0 +1,403 @@
+"""Evidence: one check each, each a small result with metric, tolerance and outcome.
+
+The deciding evidence for transfer equivalence is the relative peak gain of the
+difference system ``G1 - G2`` over all frequencies (an L-infinity norm certified by the
+Hamiltonian / symplectic eigenvalue test of Bruinsma & Steinbuch, 1990), backed by a
+pointwise rounding-error estimate and, when that straddles the tolerance, by a
+re-evaluation in ball arithmetic (:mod:`audit.evidence.precision`). Every other piece of
+evidence (minimal orders and hidden modes, Markov parameters, poles and zeros, static
+gains, frequency grid, similarity transform) supports and explains the verdict.
+
+Outcomes: ``pass`` (agrees within tolerance), ``fail`` (differs beyond tolerance),
+``unclear`` (the numerical error of the evidence straddles the tolerance), ``info``
+(reported, does not decide), ``skipped`` (not applicable, with the reason),
+``not_computed`` (an explanatory computation failed; the reason is its summary and the
+verdict stands on the decisive evidence).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Any, Callable, Literal
+
+import numpy as np
+from numpy.typing import NDArray
+
+from audit.core.realization import Realization
+
+Outcome = Literal["pass", "fail", "unclear", "info", "skipped", "not_computed"]
+EPS = float(np.finfo(float).eps)
+
+DEFAULT_RTOL = 1e-5
+"""Default relative tolerance on the peak gain of G1 - G2 (relative to the larger peak
+gain of the two models). Chosen well above the rounding level of double-precision
+evaluations of realizations reached through similarity transforms with cond(T) up to
+about 1e8, and well below differences an engineer can see on a Bode plot."""
+
+
+
+def complex_pairs(values: NDArray[np.complexfloating] | list[complex]) -> list[list[float]]:
+    return [[float(np.real(v)), float(np.imag(v))] for v in np.asarray(values).ravel()]
+
+
+def to_jsonable(value: Any) -> Any:
+    """Convert numpy scalars/arrays (and nested containers) to JSON-friendly values.
+
+    Complex numbers become ``[re, im]``; non-finite floats become the strings ``"inf"``,
+    ``"-inf"`` or ``"nan"`` so that reports stay valid JSON.
+    """
+    if isinstance(value, dict):
+        return {str(k): to_jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [to_jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        if np.iscomplexobj(value):
+            return complex_pairs(value)
+        return to_jsonable(value.tolist())
+    if isinstance(value, (complex, np.complexfloating)):
+        return [float(np.real(value)), float(np.imag(value))]
+    if isinstance(value, (np.floating, float)):
+        v = float(value)
+        return v if np.isfinite(v) else ("inf" if v > 0 else "-inf" if v < 0 else "nan")
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (np.bool_,)):
+        return bool(value)
+    return value
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """One piece of evidence.
+
+    Attributes
+    ----------
+    key : str
+        Stable identifier, e.g. ``"difference_peak_gain"``.
+    title : str
+        Short human title.
+    metric : str
+        What was measured, in words.
+    value : float or None
+        The measured value of the metric (None when it has no single number).
+    tolerance : float or None
+        The tolerance the value was compared against.
+    outcome : {"pass", "fail", "unclear", "info", "skipped", "not_computed"}
+    decisive : bool
+        True for the evidence that decides the verdict.
+    precision : str
+        Arithmetic used: ``"double"``, ``"ball arithmetic, 256 bits"``, ...
+    seconds : float
+        Wall-clock time spent computing it.
+    summary : str
+        One plain sentence.
+    details : dict
+        Further numbers (JSON-friendly).
+    """
+
+    key: str
+    title: str
+    metric: str
+    value: float | None
+    tolerance: float | None
+    outcome: Outcome
+    decisive: bool
+    precision: str
+    seconds: float
+    summary: str
+    details: dict[str, Any] = field(default_factory=dict)
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "key": self.key,
+            "title": self.title,
+            "metric": self.metric,
+            "value": to_jsonable(self.value),
+            "tolerance": self.tolerance,
+            "outcome": self.outcome,
+            "decisive": self.decisive,
+            "precision": self.precision,
+            "seconds": round(self.seconds, 6),
+            "summary": self.summary,
+            "details": to_jsonable(self.details),
+        }
+
+
+def timed(fn: Callable[[], Evidence]) -> Evidence:
+    """Run an evidence builder and stamp the wall-clock time on its result."""
+    start = time.perf_counter()
+    ev = fn()
+    elapsed = time.perf_counter() - start
+    return Evidence(**{**ev.__dict__, "seconds": elapsed})
+
+
+def skipped(key: str, title: str, reason: str) -> Evidence:
+    return Evidence(key, title, "-", None, None, "skipped", False, "-", 0.0, reason, {})
+
+
+# --------------------------------------------------------------------------- contour
+@dataclass(frozen=True)
+class Contour:
+    """Where transfer functions are compared.
+
+    Normally the imaginary axis (continuous) or the unit circle (discrete). When either
+    model has a pole on that boundary (an integrator, an undamped oscillator, a discrete
+    accumulator), the L-infinity norm is infinite, so both models are compared on a
+    shifted contour instead: ``s = σ + jω`` or ``|z| = ρ``. Two transfer functions agree
+    on the shifted contour exactly when they agree everywhere (analytic continuation),
+    so the verdict is unchanged; only the reported numbers refer to the shifted contour.
+    """
+
+    shifted: bool
+    shift: float  # σ (continuous) or ρ (discrete); 0 / 1 when not shifted
+    reason: str
+
+    def apply(self, r: Realization) -> Realization:
+        if not self.shifted or r.order == 0:
+            return r
+        if r.sample_period is None:
+            return r.with_matrices(r.a - self.shift * np.eye(r.order), r.b, r.c)
+        return r.with_matrices(r.a / self.shift, r.b / self.shift, r.c)
+
+    def describe(self) -> str:
+        if not self.shifted:
+            return "imaginary axis" if self.shift == 0.0 else "unit circle"
+        return self.reason
+
+
+BOUNDARY_PREFILTER = 1e-5
+"""Computed poles farther than this (relative) from the stability boundary are not
+examined further; closer ones are tested against the stored data (see
+:func:`boundary_poles_as_stored`)."""
+
+ROUNDING_SAFETY = 16.0
+"""Safety factor on the rounding bounds used to decide that a pole is on the boundary
+within rounding."""
+
+
+def _projection(p: complex, discrete: bool) -> complex:
+    if discrete:
+        return p / abs(p) if abs(p) > 0 else complex(1.0)
+    return complex(0.0, p.imag)
+
+
+def _boundary_distance(p: complex, discrete: bool) -> float:
+    if discrete:
+        return abs(abs(p) - 1.0)
+    return abs(p.real) / max(abs(p), 1.0)
+
+
+def _on_boundary_within_rounding(r: Realization, lam: complex) -> bool:
+    """True when the STORED model has a pole at the boundary point ``lam`` within rounding.
+
+    State space: ``σ_min(λI - A) <= 4 u max(||A||_F, |λ|)``: rounding every entry of A
+    (|E| <= u|A|, so ||E||_2 <= u ||A||_F) can make λ an eigenvalue (the normwise
+    backward error of λ as an eigenvalue is σ_min(λI - A), Higham 2nd ed., section 7.2
+    applied to λI - A). A stored exact integrator, also one seen through rounded
+    coordinates, passes; an ill-conditioned but clearly damped pole (|Re p| = 3.6e-6 next
+    to ||A|| = 1e6) does not. Transfer function: a stored denominator vanishes at λ within
+    the rounding bound of Horner's rule (Higham, section 5.1). Zero-pole-gain: a stored
+    pole is within a few units of rounding of λ.
+    """
+    from audit.core.stored_evaluation import (UNIT_ROUNDOFF, StoredTransferFunction,
+                                    StoredZerosPolesGain, _horner_with_bound)
+
+    stored = r.stored
+    if stored is None:
+        n = r.order
+        if n == 0:
+            return False
+        m = lam * np.eye(n) - r.a
+        smin = float(np.linalg.svd(m, compute_uv=False)[-1])
+        return smin <= 4.0 * UNIT_ROUNDOFF * max(float(np.linalg.norm(r.a)), abs(lam))
+    if isinstance(stored, StoredZerosPolesGain):
+        for q in stored.poles():
+            if abs(q - lam) <= ROUNDING_SAFETY * UNIT_ROUNDOFF * max(abs(q), 1.0):
+                return True
+        return False
+    if isinstance(stored, StoredTransferFunction):
+        for _, _, _, den in stored.channels():
+            val, bound = _horner_with_bound(np.asarray(den, dtype=float), np.array([complex(lam)]))
+            if abs(val[0]) <= ROUNDING_SAFETY * float(bound[0]):
+                return True
+        return False
+    return False
+
+
+def boundary_poles_as_stored(models: list[Realization]) -> list[complex]:
+    """Boundary points (imaginary axis / unit circle) where a model, as stored, has a
+    pole within rounding. A pole merely close to the boundary (|z| = 1 - 2.4e-7, say)
+    is not on it: its model is compared on the boundary itself."""
+    out: list[complex] = []
+    for r in models:
+        discrete = r.is_discrete
+        candidates = r.stored.poles() if r.stored is not None else r.poles()
+        for p in np.asarray(candidates, dtype=complex).ravel():
+            if not np.isfinite(p) or _boundary_distance(complex(p), discrete) > BOUNDARY_PREFILTER:
+                continue
+            lam = _projection(complex(p), discrete)
+            if any(abs(lam - q) <= 1e-9 * max(abs(q), 1.0) for q in out):
+                continue
+            if any(_on_boundary_within_rounding(m, lam) for m in models):
+                out.append(lam)
+    return out
+
+
+SHIFT_STEPS = (1e-4, 2e-4, 5e-4, 1e-3, 2e-3, 5e-3, 1e-2, 2e-2, 5e-2, 0.1)
+"""Candidate contour shifts, smallest first: relative to the geometric mean pole
+magnitude (continuous, σ) or as ρ - 1 (discrete). The least one that keeps every other
+pole at least the shift itself away from the contour is used."""
+
+
+def choose_contour(models: list[Realization]) -> Contour:
+    """Pick the comparison contour for a set of comparable models (see :class:`Contour`).
+
+    The contour is shifted only when a model has a pole ON the stability boundary as
+    stored (within rounding, :func:`boundary_poles_as_stored`), and then by the least
+    amount of :data:`SHIFT_STEPS` that keeps every pole at least that far from the shifted
+    contour.
+    """
+    discrete = models[0].is_discrete
+    on_boundary = boundary_poles_as_stored(models) if models else []
+    if not on_boundary:
+        return Contour(False, 1.0 if discrete else 0.0, "")
+    poles = np.concatenate([m.poles() for m in models]) if models else np.zeros(0)
+    where = ", ".join(_fmt_complex(p) for p in on_boundary[:4])
+    if discrete:
+        best = 1.0 + SHIFT_STEPS[-1]
+        for step in SHIFT_STEPS:
+            rho = 1.0 + step
+            if poles.size == 0 or float(np.min(np.abs(np.abs(poles) - rho))) >= step / 2:
+                best = rho
+                break
+        return Contour(
+            True,
+            best,
+            f"circle |z| = {best:g} (a pole lies on the unit circle as stored, at {where}, "
+            "where the gain is unbounded)",
+        )
+    nonzero = np.abs(poles[np.abs(poles) > 0])
+    ref = float(np.exp(np.mean(np.log(nonzero)))) if nonzero.size else 1.0
+    best = SHIFT_STEPS[-1] * ref
+    for step in SHIFT_STEPS:
+        sigma = step * ref
+        if poles.size == 0 or float(np.min(np.abs(poles.real - sigma))) >= sigma / 2:
+            best = sigma
+            break
+    return Contour(
+        True,
+        best,
+        f"line Re(s) = {best:.3g} (a pole lies on the imaginary axis as stored, at {where}, "
+        "where the gain is unbounded)",
+    )
+
+
+def frequency_to_point(omega: NDArray[np.float64], r: Realization) -> NDArray[np.complex128]:
+    w = np.asarray(omega, dtype=float)
+    if r.sample_period is None:
+        return 1j * w
+    return np.exp(1j * w * r.sample_period)
+
+
+__all__ = [
+    "Evidence",
+    "to_jsonable",
+    "Contour",
+    "choose_contour",
+    "DEFAULT_RTOL",
+    "frequency_to_point",
+    "skipped",
+    "timed",
+]
+
+
+# ----------------------------------------------------------------------- builders
+def stability_label(poles: NDArray[np.complexfloating], discrete: bool) -> str:
+    """``"stable"``, ``"marginal"`` or ``"unstable"`` for a set of poles.
+
+    One rule for the whole project: :func:`audit.structure.minimal.mode_stability` per mode;
+    the set is unstable if any mode is, else marginal if any mode is.
+    """
+    from audit.structure.minimal import mode_stability
+
+    labels = {mode_stability(complex(p), discrete=discrete) for p in np.asarray(poles).ravel()}
+    if "unstable" in labels:
+        return "unstable"
+    return "marginal" if "marginal" in labels else "stable"
+
+
+def is_unstable_mode(p: complex, discrete: bool) -> bool:
+    """True for a mode on or beyond the stability boundary (marginal counts), by
+    :func:`audit.structure.minimal.mode_stability`."""
+    from audit.structure.minimal import mode_stability
+
+    return mode_stability(complex(p), discrete=discrete) != "stable"
+
+
+def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = None) -> tuple[Evidence, Any]:
+    """Minimal order and hidden modes of one model (orthogonal staircase)."""
+    from audit.structure.minimal import minimal_realization, mode_couplings
+
+    start = time.perf_counter()
+    mr = minimal_realization(r, tol=tol)
+    couplings = mode_couplings(r, tol=tol, minimal=mr)  # hidden / nearly hidden, with levels
+    flagged = [m.as_dict() for m in couplings.flagged]
+    hidden = [(complex(*m["location"]), m["kind"]) for m in flagged if m["classification"] == "hidden"]
+    unstable_hidden = [(complex(*m["location"]), m["kind"]) for m in flagged if m["unstable"]]
+    if not hidden:
+        summary = f"{label}: minimal (order {r.order})"
+    else:
+        summary = (
+            f"{label}: order {r.order}, minimal order {mr.order}; "
+            f"{len(hidden)} hidden mode(s)"
+        )
+    if unstable_hidden:
+        where = ", ".join(f"{_fmt_complex(p)} ({how})" for p, how in unstable_hidden)
+        summary += f", UNSTABLE hidden or nearly hidden mode(s) at {where}"
+    clear = bool(mr.decisions_clear)
+    if not clear:
+        summary += "; some rank decisions had no clear singular-value gap"
+    stored = getattr(r, "stored", None)
+    if stored is not None:
+        summary += f" (computed on the realization of the {stored.describe()}, a converted copy)"
+    decisions = [d.as_dict() for d in mr.decisions]
+    worst_gap = min((float(d.gap) for d in mr.decisions), default=float("inf"))
+    ev = Evidence(
+        key=f"minimal_order:{label}",
+        title=f"Minimal order and hidden modes of {label}",
+        metric="order of the controllable and observable part (orthogonal staircase)",
+        value=float(mr.order),
+        tolerance=float(mr.tolerance) if mr.tolerance is not None else None,
+        outcome="info" if clear else "unclear",
+        decisive=False,
+        precision="double",
+        seconds=time.perf_counter() - start,
+        summary=summary,
+        details={
+            "order": r.order,
+            "minimal_order": mr.order,
+            "hidden_modes": [m for m in flagged if m["classification"] == "hidden"],
+            "nearly_hidden_modes": [m for m in flagged if m["classification"] == "nearly_hidden"],
+            "mode_coupling_thresholds": couplings.as_dict()["thresholds"],
+            "unstable_hidden_modes": len(unstable_hidden),
+            "rank_decisions": decisions,
+            "smallest_gap": worst_gap,
+            "computed_from": "state-space matrices as stored" if stored is None else
+            f"realization of the {stored.describe()} (converted copy)",
+        },
+    )
+    return ev, mr
+
+
+def _fmt_complex(p: complex) -> str:
+    re_ = p.real + 0.0  # + 0.0 turns -0.0 into 0.0: no "-0" in reports
+    if abs(p.imag) <= 1e-12 * max(abs(p), 1e-300):
+        return f"{re_:.6g}"
+    sign = "+" if p.imag >= 0 else "-"
+    return f"{re_:.6g}{sign}{abs(p.imag):.6g}j"
+
+
+def fmt_complex(p: complex) -> str:
+    """Short human formatting of a complex number (real numbers without ``+0j``)."""
+    return _fmt_complex(complex(p))

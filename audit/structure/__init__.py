@@ -1,0 +1,1 @@
+"""Stage 3a, structure: orthogonal staircase, minimal realizations, hidden modes, transmission zeros."""

@@ -1,0 +1,1 @@
+"""Workflows: claims manifests, git-base comparison, stress campaigns and their random-system strategies."""
