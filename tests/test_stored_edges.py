@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from audit.errors import InvalidModelError
-from audit.evidence.record import choose_contour
+from audit.evidence.contour import choose_contour
 from audit.documents.loading import realization_from_document
 
 from .test_stored_references import ss_doc, tf_doc, truth, verdict_of, factored_doc

@@ -7,7 +7,7 @@ for computing the H-infinity norm of a transfer matrix and related problems",
 Mathematics of Control, Signals, and Systems 2 (1989) 207-219): for ``gamma`` that is not
 a singular value of ``D``, ``gamma`` is a singular value of ``G(j omega)`` exactly when
 ``j omega`` is an eigenvalue of the Hamiltonian matrix ``H(gamma)`` (built by
-:func:`audit.evidence.peak_gain._hamiltonian`). So the imaginary eigenvalues of ``H(gamma)`` are the
+:func:`audit.evidence.level_crossings.hamiltonian_matrix`). So the imaginary eigenvalues of ``H(gamma)`` are the
 only frequencies where ``sigma_max(G) - gamma`` can change sign.
 
 Restricted to a band ``[low, high]``: the band is cut at the crossings that fall inside
@@ -37,7 +37,14 @@ import scipy.linalg
 from numpy.typing import ArrayLike, NDArray
 
 from audit.errors import InvalidModelError, NumericalTroubleError
+from audit.evidence.contour import frequency_to_point
 from audit.evidence.frequency import TransferEvaluator
+from audit.evidence.level_crossings import (
+    bilinear_to_continuous,
+    hamiltonian_matrix,
+    imaginary_axis_frequencies,
+    sigma_max,
+)
 from audit.core.realization import Realization
 
 FloatArray = NDArray[np.float64]
@@ -117,57 +124,109 @@ class _Crossings:
     """Frequencies (rad/s) where some singular value of G equals gamma."""
 
     def __init__(self, r: Realization):
-        from audit.evidence.peak_gain import _hamiltonian
-
-        self._hamiltonian = _hamiltonian
         self.period = r.sample_period
         self.flip = 1.0
         if r.sample_period is None:
             self.mats = (r.a, r.b, r.c, r.d)
             return
         # bilinear map z = flip (1 + s) / (1 - s), as in audit.evidence.peak_gain.peak_gain
-        poles = r.poles()
-        if poles.size and np.min(np.abs(poles + 1.0)) < np.min(np.abs(poles - 1.0)):
-            self.flip = -1.0
-        a, b, c, d = self.flip * r.a, r.b, self.flip * r.c, r.d
-        n = r.order
-        try:
-            lu = scipy.linalg.lu_factor(np.eye(n) + a, check_finite=False)
-            ac = scipy.linalg.lu_solve(lu, a - np.eye(n), check_finite=False)
-            inv_b = scipy.linalg.lu_solve(lu, b, check_finite=False)
-            c_inv = scipy.linalg.lu_solve(lu, c.T, trans=1, check_finite=False).T
-        except (np.linalg.LinAlgError, ValueError, scipy.linalg.LinAlgError) as exc:
-            raise NumericalTroubleError(f"bilinear transform failed: I + A is singular ({exc})") from exc
-        if not (np.all(np.isfinite(ac)) and np.all(np.isfinite(inv_b)) and np.all(np.isfinite(c_inv))):
+        self.mats, self.flip, c_finite = bilinear_to_continuous(r, "bilinear transform failed")
+        if not c_finite:
             raise NumericalTroubleError("bilinear transform failed: I + A is singular")
-        self.mats = (ac, math.sqrt(2.0) * inv_b, math.sqrt(2.0) * c_inv, d - c @ inv_b)
 
     def at(self, gamma: float, imaginary_rtol: float) -> FloatArray:
         a, b, c, d = self.mats
-        ham = self._hamiltonian(a, b, c, d, gamma)
+        ham = hamiltonian_matrix(a, b, c, d, gamma)
         eigs = scipy.linalg.eigvals(ham, check_finite=False, overwrite_a=True)
         if not np.all(np.isfinite(eigs)):
             raise NumericalTroubleError(f"the Hamiltonian at gamma={gamma:.6g} has non-finite eigenvalues")
-        floor = math.sqrt(_EPS) * float(np.max(np.abs(eigs), initial=0.0))
-        near_axis = np.abs(eigs.real) <= imaginary_rtol * np.maximum(np.abs(eigs), floor)
-        nu = np.unique(np.abs(eigs.imag[near_axis]))
+        nu = imaginary_axis_frequencies(eigs, imaginary_rtol)
         if self.period is None:
             return nu
         theta = 2.0 * np.arctan(nu) + (math.pi if self.flip < 0 else 0.0)
         theta = np.abs(np.remainder(theta + math.pi, 2.0 * math.pi) - math.pi)
         return np.unique(theta / self.period)
 
+    def at_or_nudged(self, gamma: float, imaginary_rtol: float) -> tuple[FloatArray, float]:
+        """The crossings at ``gamma``, or at ``gamma (1 + 1e-9)`` when the test fails at
+        ``gamma`` (it may be a singular value of ``D``, where the test does not apply).
 
-def _points(r: Realization, omega: FloatArray) -> NDArray[np.complex128]:
-    if r.sample_period is None:
-        return 1j * omega
-    return np.exp(1j * omega * r.sample_period)
+        Returns ``(crossings, gamma used)``; raises :class:`_CrossingTestFailed` (with
+        the first failure as its cause and the nudged gamma) when both fail."""
+        try:
+            return self.at(gamma, imaginary_rtol), gamma
+        except _TEST_FAILURES as exc:
+            try:
+                gamma *= 1.0 + 1e-9
+                return self.at(gamma, imaginary_rtol), gamma
+            except _TEST_FAILURES:
+                raise _CrossingTestFailed(gamma) from exc
 
 
-def _sigma_max(g: NDArray[np.complex128]) -> FloatArray:
-    if g.shape[1] == 1 or g.shape[2] == 1:
-        return np.sqrt(np.sum(np.abs(g) ** 2, axis=(1, 2)))
-    return np.linalg.svd(g, compute_uv=False)[:, 0]
+_TEST_FAILURES = (NumericalTroubleError, np.linalg.LinAlgError, ValueError,
+                  scipy.linalg.LinAlgError)
+
+
+class _CrossingTestFailed(Exception):
+    """Internal signal: the level-crossing test failed at ``gamma`` and its nudge."""
+
+    def __init__(self, gamma: float) -> None:
+        super().__init__(gamma)
+        self.gamma = gamma
+
+
+class _BandResponse:
+    """``sigma_max(G)`` and its error estimate at frequencies of the band; ``omega = inf``
+    is the high-frequency limit ``sigma_max(D)``."""
+
+    def __init__(self, r: Realization) -> None:
+        self.r = r
+        self.evaluator = TransferEvaluator(r)
+        self.sigma_d = float(np.linalg.norm(r.d, 2)) if r.d.size else 0.0
+
+    def measure(self, omega: FloatArray, errors: bool = True) -> tuple[FloatArray, FloatArray]:
+        finite = np.isfinite(omega)
+        vals = np.full(omega.shape, self.sigma_d)
+        errs = np.full(omega.shape, 4 * _EPS * self.sigma_d)
+        if np.any(finite):
+            g, e = self.evaluator.values_and_errors(frequency_to_point(omega[finite], self.r),
+                                                    errors=errors)
+            vals[finite] = sigma_max(g)
+            errs[finite] = e
+        return vals, errs
+
+
+def _start_frequencies(lo: float, hi: float, grid: ArrayLike | None) -> FloatArray:
+    """The band's ends and the grid points strictly inside the band."""
+    start = [lo, hi]
+    if grid is not None:
+        w = np.asarray(grid, dtype=float).ravel()
+        start += [float(x) for x in w[(w > lo) & (w < hi) & np.isfinite(w)]]
+    return np.unique(np.array(start))
+
+
+def _piece_test_points(cut: FloatArray, lo: float, hi: float) -> FloatArray:
+    """The band cut at the crossings inside it: one interior point per piece, plus the
+    band's ends.
+
+    The crossings themselves are not needed (``sigma_max = gamma`` there at most); the
+    band's ends raise the lower bound.  An unbounded last piece is represented by
+    ``2 * last + 1``.
+    """
+    inside = cut[(cut > lo) & (cut < hi)]
+    ends = np.unique(np.concatenate([[lo], inside, [hi]]))
+    if math.isinf(hi):
+        finite_ends = ends[np.isfinite(ends)]
+        last = float(finite_ends[-1])
+        mids = 0.5 * (ends[:-2] + ends[1:-1]) if ends.size > 2 else np.zeros(0)
+        mids = np.append(mids, 2.0 * last + 1.0)  # a point of the last, unbounded piece
+    else:
+        mids = 0.5 * (ends[:-1] + ends[1:])
+    return np.unique(np.concatenate([[lo, hi], mids]))
+
+
+_METHOD = ("level crossings of the Hamiltonian intersected with the band "
+           "(Boyd-Balakrishnan-Kabamba 1989; Bruinsma-Steinbuch 1990 iteration)")
 
 
 def band_limited_peak(
@@ -220,32 +279,16 @@ def band_limited_peak(
     (0.4472135955, 2.0, True)
     """
     lo, hi = check_band(band, sample_period=r.sample_period)
-    evaluator = TransferEvaluator(r)
-    sigma_d = float(np.linalg.norm(r.d, 2)) if r.d.size else 0.0
-
-    def measure(omega: FloatArray, errors: bool = True) -> tuple[FloatArray, FloatArray]:
-        finite = np.isfinite(omega)
-        vals = np.full(omega.shape, sigma_d)
-        errs = np.full(omega.shape, 4 * _EPS * sigma_d)
-        if np.any(finite):
-            g, e = evaluator.values_and_errors(_points(r, omega[finite]), errors=errors)
-            vals[finite] = _sigma_max(g)
-            errs[finite] = e
-        return vals, errs
-
-    start = [lo, hi]
-    if grid is not None:
-        w = np.asarray(grid, dtype=float).ravel()
-        start += [float(x) for x in w[(w > lo) & (w < hi) & np.isfinite(w)]]
-    test = np.unique(np.array(start))
-    vals, _ = measure(test, errors=False)  # a lower bound only (as in audit.evidence.peak_gain)
+    response = _BandResponse(r)
+    # step 1: a lower bound from the band's ends and the grid inside it
+    test = _start_frequencies(lo, hi, grid)
+    vals, _ = response.measure(test, errors=False)  # a lower bound only (as in audit.evidence.peak_gain)
     ok = np.isfinite(vals)
     if not np.any(ok):
         return BandPeak(math.nan, math.nan, math.inf, False, 0, (lo, hi), "grid",
                         "the response could not be evaluated in the band")
     k = int(np.argmax(np.where(ok, vals, -np.inf)))
     lower, at = float(vals[k]), float(test[k])
-    method = "level crossings of the Hamiltonian intersected with the band (Boyd-Balakrishnan-Kabamba 1989; Bruinsma-Steinbuch 1990 iteration)"
     if r.order == 0:
         return BandPeak(lower, at, lower * (1 + 4 * _EPS), True, 0, (lo, hi), "static gain")
     try:
@@ -253,34 +296,32 @@ def band_limited_peak(
     except NumericalTroubleError as exc:
         return BandPeak(lower, at, math.inf, False, 0, (lo, hi), "grid only",
                         f"level crossings not available: {exc}")
+    return _band_level_set_iteration(response, crossings, lower, at, (lo, hi), floor=floor,
+                                     rtol=rtol, imaginary_rtol=imaginary_rtol,
+                                     max_iterations=max_iterations)
+
+
+def _band_level_set_iteration(response: _BandResponse, crossings: _Crossings, lower: float,
+                              at: float, band: tuple[float, float], *, floor: float,
+                              rtol: float, imaginary_rtol: float,
+                              max_iterations: int) -> BandPeak:
+    """Step 2: test ``gamma`` (at least ``floor``); the band is cut at the crossings and
+    one point per piece raises ``lower`` until no piece reaches ``gamma`` (then ``gamma``
+    is certified, widened when the error estimate straddles it)."""
+    lo, hi = band
     gamma = max((1.0 + 2.0 * rtol) * lower, floor, float(np.finfo(float).tiny))
     iterations = 0
     note = ""
     while iterations < max_iterations:
         iterations += 1
         try:
-            cut = crossings.at(gamma, imaginary_rtol)
-        except (NumericalTroubleError, np.linalg.LinAlgError, ValueError, scipy.linalg.LinAlgError) as exc:
-            # gamma may be a singular value of D (the test does not apply there): nudge it
-            try:
-                gamma *= 1.0 + 1e-9
-                cut = crossings.at(gamma, imaginary_rtol)
-            except (NumericalTroubleError, np.linalg.LinAlgError, ValueError, scipy.linalg.LinAlgError):
-                return BandPeak(lower, at, math.inf, False, iterations, (lo, hi), "grid only",
-                                f"level-crossing test failed at gamma={gamma:.6g}: {exc}")
-        inside = cut[(cut > lo) & (cut < hi)]
-        ends = np.unique(np.concatenate([[lo], inside, [hi]]))
-        if math.isinf(hi):
-            finite_ends = ends[np.isfinite(ends)]
-            last = float(finite_ends[-1])
-            mids = 0.5 * (ends[:-2] + ends[1:-1]) if ends.size > 2 else np.zeros(0)
-            mids = np.append(mids, 2.0 * last + 1.0)  # a point of the last, unbounded piece
-        else:
-            mids = 0.5 * (ends[:-1] + ends[1:])
-        # one interior point per piece decides its sign; the crossings themselves are not
-        # needed (sigma_max = gamma there at most), the band's ends raise the lower bound
-        test = np.unique(np.concatenate([[lo, hi], mids]))
-        vals, errs = measure(test)
+            cut, gamma = crossings.at_or_nudged(gamma, imaginary_rtol)
+        except _CrossingTestFailed as failed:
+            return BandPeak(lower, at, math.inf, False, iterations, (lo, hi), "grid only",
+                            f"level-crossing test failed at gamma={failed.gamma:.6g}: "
+                            f"{failed.__cause__}")
+        test = _piece_test_points(cut, lo, hi)
+        vals, errs = response.measure(test)
         ok = np.isfinite(vals) & np.isfinite(errs)
         if not np.any(ok):
             return BandPeak(lower, at, math.inf, False, iterations, (lo, hi), "grid only",
@@ -295,10 +336,10 @@ def band_limited_peak(
         reach = np.where(ok, vals + errs, np.inf)
         k = int(np.argmax(reach))
         if reach[k] < gamma:
-            return BandPeak(lower, at, gamma, True, iterations, (lo, hi), method, note)
+            return BandPeak(lower, at, gamma, True, iterations, (lo, hi), _METHOD, note)
         # ambiguous at this width: widen the bracket to cover the evaluation error
         note = (f"bracket widened to cover the evaluation error ({errs[k]:.3g} at "
                 f"{test[k]:.6g} rad/s)")
         gamma = (1.0 + 2.0 * rtol) * float(reach[k])
-    return BandPeak(lower, at, math.inf, False, iterations, (lo, hi), method,
+    return BandPeak(lower, at, math.inf, False, iterations, (lo, hi), _METHOD,
                     f"no convergence within max_iterations={max_iterations}")

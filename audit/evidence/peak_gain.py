@@ -52,6 +52,12 @@ from numpy.typing import ArrayLike, NDArray
 from audit.core.threads import wide_blas_threads
 from audit.errors import InvalidModelError, NumericalTroubleError
 from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
+from audit.evidence.level_crossings import (
+    bilinear_to_continuous,
+    hamiltonian_matrix,
+    imaginary_axis_frequencies,
+    sigma_max,
+)
 from audit.core.realization import Realization
 
 FloatArray = NDArray[np.float64]
@@ -119,30 +125,6 @@ class PeakGain:
 
 
 # ----------------------------------------------------------------------- helpers
-def _sigma_max(g: NDArray[np.complex128]) -> FloatArray:
-    """Largest singular value of each (p, m) slice of ``g : (k, p, m)``."""
-    if g.shape[1] == 1 or g.shape[2] == 1:
-        return np.sqrt(np.sum(np.abs(g) ** 2, axis=(1, 2)))
-    return np.linalg.svd(g, compute_uv=False)[:, 0]
-
-
-def _hamiltonian(
-    a: FloatArray, b: FloatArray, c: FloatArray, d: FloatArray, gamma: float
-) -> FloatArray:
-    """``H(gamma)`` of Boyd, Balakrishnan and Kabamba (1989); solves, no inverses."""
-    p, m = d.shape
-    r = d.T @ d - gamma**2 * np.eye(m)
-    s = d @ d.T - gamma**2 * np.eye(p)
-    # R and S are symmetric negative definite for gamma > sigma_max(D).
-    rhs = np.hstack([d.T @ c, b.T])
-    sol = scipy.linalg.solve(r, rhs, assume_a="sym", check_finite=False)
-    r_dc, r_bt = sol[:, : c.shape[1]], sol[:, c.shape[1] :]
-    s_c = scipy.linalg.solve(s, c, assume_a="sym", check_finite=False)
-    top = np.hstack([a - b @ r_dc, -gamma * (b @ r_bt)])
-    bottom = np.hstack([gamma * (c.T @ s_c), -a.T + (c.T @ d) @ r_bt])
-    return np.vstack([top, bottom])
-
-
 POLISH_MIN_ORDER = 30
 """From this order the grid maxima are polished before the first eigenvalue test."""
 
@@ -177,7 +159,7 @@ def _polish_peaks(evaluator: TransferEvaluator, omegas: FloatArray, values: Floa
         grids = [np.linspace(lo, hi, points) for lo, hi in brackets]
         pts = np.concatenate(grids)
         g, _ = evaluator.values_and_errors(1j * pts, errors=False)
-        sv = _sigma_max(g).reshape(len(brackets), points)
+        sv = sigma_max(g).reshape(len(brackets), points)
         sv = np.where(np.isfinite(sv), sv, -np.inf)
         for b, (grid, row) in enumerate(zip(grids, sv)):
             j = int(np.argmax(row))
@@ -197,6 +179,133 @@ class _CoreResult:
     note: str
 
 
+# ------------------------------------------- the Bruinsma-Steinbuch steps (continuous)
+def _grid_lower_bound(sys: Realization, evaluator: TransferEvaluator,
+                      initial: FloatArray) -> tuple[float, float]:
+    """Step 1: ``(gamma_lb, omega_lb)``, the largest ``sigma_max`` on the initial grid.
+
+    Polished around the grid's largest maxima from :data:`POLISH_MIN_ORDER` on; the
+    high-frequency limit ``sigma_max(D)`` (at ``omega = inf``) counts as a grid point.
+    """
+    d = sys.d
+    sigma_d = float(np.linalg.norm(d, 2)) if d.size else 0.0
+    g0, _ = evaluator.values_and_errors(1j * initial, errors=False)
+    s0 = sigma_max(g0)
+    s0 = np.where(np.isfinite(s0), s0, -np.inf)
+    best = int(np.argmax(s0))
+    gamma_lb, omega_lb = float(s0[best]), float(initial[best])
+    if sys.order >= POLISH_MIN_ORDER:
+        w_p, s_p = _polish_peaks(evaluator, np.asarray(initial, dtype=float), s0)
+        if s_p > gamma_lb:
+            gamma_lb, omega_lb = s_p, w_p
+    if sigma_d >= gamma_lb:
+        gamma_lb, omega_lb = sigma_d, math.inf
+    return gamma_lb, omega_lb
+
+
+def _proven_above(evaluator: TransferEvaluator, gamma_lb: float, omega_lb: float,
+                  stop_above: float) -> _CoreResult | None:
+    """Early exit: the lower bound minus its error estimate already exceeds ``stop_above``.
+
+    Then the norm exceeds it, and no eigenvalue test is needed to say so.
+    """
+    if math.isfinite(omega_lb):
+        _, err_lb = evaluator.values_and_errors(np.array([1j * omega_lb]))
+        proven = gamma_lb - float(err_lb[0])
+    else:
+        proven = gamma_lb * (1 - 4 * _EPS)
+    if proven > stop_above:
+        return _CoreResult(gamma_lb, omega_lb, math.inf, 0, False,
+                           f"stopped before the eigenvalue tests: a point already exceeds "
+                           f"stop_above={stop_above:.6g} (lower bound {proven:.6g})")
+    return None
+
+
+def _crossing_candidates(sys: Realization, gamma: float,
+                         imaginary_rtol: float) -> tuple[FloatArray | None, str]:
+    """Step 2a: the imaginary eigenvalues ``j omega_i`` of ``H(gamma)``, as ``omega_i``.
+
+    Returns ``(candidates, "")``, or ``(None, reason)`` when the eigenvalue test failed.
+    """
+    try:
+        ham = hamiltonian_matrix(sys.a, sys.b, sys.c, sys.d, gamma)
+        with wide_blas_threads(ham.shape[0]):
+            eigs = scipy.linalg.eigvals(ham, check_finite=False, overwrite_a=True)
+    except (np.linalg.LinAlgError, ValueError, scipy.linalg.LinAlgError) as exc:
+        return None, f"Hamiltonian eigenvalue test failed at gamma={gamma:.6g}: {exc}"
+    if not np.all(np.isfinite(eigs)):
+        return None, f"Hamiltonian at gamma={gamma:.6g} has non-finite eigenvalues"
+    return imaginary_axis_frequencies(eigs, imaginary_rtol), ""
+
+
+def _test_frequencies(candidates: FloatArray) -> FloatArray:
+    """Step 2b: DC, the candidates and the midpoints of consecutive candidates."""
+    pts = np.concatenate([[0.0], candidates])
+    mids = 0.5 * (pts[1:] + pts[:-1])
+    return np.unique(np.concatenate([pts, mids]))
+
+
+def _level_set_iteration(sys: Realization, evaluator: TransferEvaluator, gamma_lb: float,
+                         omega_lb: float, *, rtol: float, imaginary_rtol: float,
+                         max_iterations: int) -> _CoreResult:
+    """Step 2: test ``gamma = (1 + 2 rtol) gamma_lb`` until no test point reaches it.
+
+    A test point at or above ``gamma`` is a genuine crossing: ``gamma_lb`` rises (by at
+    least ``2 rtol``) and the test repeats.  When every test point stays below ``gamma``
+    by more than its rounding-error estimate, ``gamma`` is a certified upper bound; when
+    the estimate straddles ``gamma``, the bracket is widened to cover it.
+    """
+    note = ""
+    iterations = 0
+    gamma = (1.0 + 2.0 * rtol) * gamma_lb
+    while True:
+        if iterations >= max_iterations:
+            return _CoreResult(gamma_lb, omega_lb, math.inf, iterations, False,
+                               f"no convergence within max_iterations={max_iterations}")
+        if sys.order == 0:
+            return _CoreResult(gamma_lb, omega_lb, gamma, iterations, True, note)
+        iterations += 1
+        cand, failure = _crossing_candidates(sys, gamma, imaginary_rtol)
+        if cand is None:
+            return _CoreResult(gamma_lb, omega_lb, math.inf, iterations, False, failure)
+        if cand.size == 0:
+            return _CoreResult(gamma_lb, omega_lb, gamma, iterations, True, note)
+        test = _test_frequencies(cand)
+        g, err = evaluator.values_and_errors(1j * test)
+        sv = sigma_max(g)
+        ok = np.isfinite(sv) & np.isfinite(err)
+        if not np.any(ok):
+            return _CoreResult(gamma_lb, omega_lb, math.inf, iterations, False,
+                               "the response could not be evaluated at the candidate "
+                               "frequencies")
+        sv_ok = np.where(ok, sv, -np.inf)
+        j = int(np.argmax(sv_ok))
+        if sv_ok[j] > gamma_lb:
+            gamma_lb, omega_lb = float(sv_ok[j]), float(test[j])
+        if sv_ok[j] >= gamma:
+            # a genuine crossing: the lower bound rose by at least 2 rtol
+            gamma = (1.0 + 2.0 * rtol) * gamma_lb
+            continue
+        # Step 2c, certification. Every test point is below gamma: the candidates were
+        # spurious or crossings of smaller singular values, so sigma_max < gamma
+        # everywhere -- provided the evaluation errors cannot lift a test point to gamma.
+        reach = np.where(ok, sv + err, np.inf)
+        k = int(np.argmax(reach))
+        if reach[k] < gamma:
+            return _CoreResult(gamma_lb, omega_lb, gamma, iterations, True, note)
+        if not math.isfinite(float(reach[k])):
+            return _CoreResult(gamma_lb, omega_lb, math.inf, iterations, False,
+                               "the error estimate of the response is not finite near the "
+                               "peak")
+        # Ambiguous at this width: widen the bracket so that it covers the
+        # rounding-error estimate, and test again.
+        note = (
+            f"bracket widened beyond 1 + 2 rtol to cover the rounding-error estimate "
+            f"of the response ({err[k]:.3g} at omega={test[k]:.6g})"
+        )
+        gamma = (1.0 + 2.0 * rtol) * float(reach[k])
+
+
 def _continuous_peak(
     sys: Realization,
     initial: FloatArray,
@@ -208,116 +317,17 @@ def _continuous_peak(
 ) -> _CoreResult:
     """Bruinsma-Steinbuch iteration on a continuous-time system without axis poles."""
     evaluator = TransferEvaluator(sys)
-    a, b, c, d = sys.a, sys.b, sys.c, sys.d
-    sigma_d = float(np.linalg.norm(d, 2)) if d.size else 0.0
-
-    g0, _ = evaluator.values_and_errors(1j * initial, errors=False)
-    s0 = _sigma_max(g0)
-    s0 = np.where(np.isfinite(s0), s0, -np.inf)
-    best = int(np.argmax(s0))
-    gamma_lb, omega_lb = float(s0[best]), float(initial[best])
-    if sys.order >= POLISH_MIN_ORDER:
-        w_p, s_p = _polish_peaks(evaluator, np.asarray(initial, dtype=float), s0)
-        if s_p > gamma_lb:
-            gamma_lb, omega_lb = s_p, w_p
-    if sigma_d >= gamma_lb:
-        gamma_lb, omega_lb = sigma_d, math.inf
+    gamma_lb, omega_lb = _grid_lower_bound(sys, evaluator, initial)
     if stop_above is not None and gamma_lb > stop_above:
-        # proven above the threshold already (value minus its error estimate): the
-        # norm exceeds it, and no eigenvalue test is needed to say so
-        if math.isfinite(omega_lb):
-            _, err_lb = evaluator.values_and_errors(np.array([1j * omega_lb]))
-            proven = gamma_lb - float(err_lb[0])
-        else:
-            proven = gamma_lb * (1 - 4 * _EPS)
-        if proven > stop_above:
-            return _CoreResult(gamma_lb, omega_lb, math.inf, 0, False,
-                               f"stopped before the eigenvalue tests: a point already exceeds "
-                               f"stop_above={stop_above:.6g} (lower bound {proven:.6g})")
+        early = _proven_above(evaluator, gamma_lb, omega_lb, stop_above)
+        if early is not None:
+            return early
     if not gamma_lb > 0:
-        if sys.order == 0 or not np.any(b) or not np.any(c):
+        if sys.order == 0 or not np.any(sys.b) or not np.any(sys.c):
             return _CoreResult(0.0, 0.0, 0.0, 0, True, "the transfer matrix is zero")
         gamma_lb = float(np.finfo(float).tiny)
-
-    note = ""
-    certified = True
-    iterations = 0
-    upper = math.inf
-    widened = False
-    gamma = (1.0 + 2.0 * rtol) * gamma_lb
-    while True:
-        if iterations >= max_iterations:
-            certified = False
-            note = f"no convergence within max_iterations={max_iterations}"
-            upper = math.inf
-            break
-        if sys.order == 0:
-            upper = gamma
-            break
-        iterations += 1
-        try:
-            ham = _hamiltonian(a, b, c, d, gamma)
-            with wide_blas_threads(ham.shape[0]):
-                eigs = scipy.linalg.eigvals(ham, check_finite=False, overwrite_a=True)
-        except (np.linalg.LinAlgError, ValueError, scipy.linalg.LinAlgError) as exc:
-            certified = False
-            note = f"Hamiltonian eigenvalue test failed at gamma={gamma:.6g}: {exc}"
-            upper = math.inf
-            break
-        if not np.all(np.isfinite(eigs)):
-            certified = False
-            note = f"Hamiltonian at gamma={gamma:.6g} has non-finite eigenvalues"
-            upper = math.inf
-            break
-        floor = math.sqrt(_EPS) * float(np.max(np.abs(eigs)))
-        near_axis = np.abs(eigs.real) <= imaginary_rtol * np.maximum(np.abs(eigs), floor)
-        cand = np.unique(np.abs(eigs.imag[near_axis]))
-        if cand.size == 0:
-            upper = gamma
-            break
-        pts = np.concatenate([[0.0], cand])
-        mids = 0.5 * (pts[1:] + pts[:-1])
-        test = np.unique(np.concatenate([pts, mids]))
-        g, err = evaluator.values_and_errors(1j * test)
-        sv = _sigma_max(g)
-        ok = np.isfinite(sv) & np.isfinite(err)
-        if not np.any(ok):
-            certified = False
-            note = "the response could not be evaluated at the candidate frequencies"
-            upper = math.inf
-            break
-        sv_ok = np.where(ok, sv, -np.inf)
-        j = int(np.argmax(sv_ok))
-        if sv_ok[j] > gamma_lb:
-            gamma_lb, omega_lb = float(sv_ok[j]), float(test[j])
-        if sv_ok[j] >= gamma:
-            # a genuine crossing: the lower bound rose by at least 2 rtol
-            gamma = (1.0 + 2.0 * rtol) * gamma_lb
-            continue
-        # Every test point is below gamma: the candidates were spurious or crossings
-        # of smaller singular values, so sigma_max < gamma everywhere -- provided
-        # the evaluation errors cannot lift a test point to gamma.
-        reach = np.where(ok, sv + err, np.inf)
-        k = int(np.argmax(reach))
-        if reach[k] < gamma:
-            upper = gamma
-            break
-        if not math.isfinite(float(reach[k])):
-            certified = False
-            note = "the error estimate of the response is not finite near the peak"
-            upper = math.inf
-            break
-        # Ambiguous at this width: widen the bracket so that it covers the
-        # rounding-error estimate, and test again.
-        widened = True
-        note = (
-            f"bracket widened beyond 1 + 2 rtol to cover the rounding-error estimate "
-            f"of the response ({err[k]:.3g} at omega={test[k]:.6g})"
-        )
-        gamma = (1.0 + 2.0 * rtol) * float(reach[k])
-    if widened and not certified:
-        note = note or "bracket widened"
-    return _CoreResult(gamma_lb, omega_lb, upper, iterations, certified, note)
+    return _level_set_iteration(sys, evaluator, gamma_lb, omega_lb, rtol=rtol,
+                                imaginary_rtol=imaginary_rtol, max_iterations=max_iterations)
 
 
 def _boundary_poles(
@@ -442,7 +452,25 @@ def peak_gain(
     (2.0, True)
     """
     _validate_options(rtol, imaginary_rtol, boundary_rtol, max_iterations)
-    period = r.sample_period
+    omegas = _initial_frequencies(r, grid)
+    if r.order == 0:
+        return _static_gain(r)
+    visible, hidden = _boundary_poles(r, boundary_rtol)
+    if visible:
+        return _infinite_at_boundary_pole(r, visible[0], omegas)
+    if hidden:
+        return _grid_bound_beside_hidden_modes(r, hidden, omegas)
+    options = dict(rtol=rtol, imaginary_rtol=imaginary_rtol, max_iterations=max_iterations,
+                   stop_above=stop_above)
+    if r.sample_period is None:
+        return _continuous_time_peak(r, omegas, **options)
+    return _discrete_time_peak(r, omegas, **options)
+
+
+# ------------------------------------------------------------- the steps of peak_gain
+def _initial_frequencies(r: Realization, grid: ArrayLike | None) -> FloatArray:
+    """The frequencies [rad/s] of step 1: the given grid (or a light adaptive one) plus
+    DC and every pole frequency, up to Nyquist in discrete time."""
     if grid is None:
         # a light grid: the eigenvalue iteration does the rest
         omegas = adaptive_frequency_grid([r], points_per_decade=5, refine_points=3)
@@ -459,105 +487,106 @@ def peak_gain(
             )
         poles_w = adaptive_frequency_grid([r], points_per_decade=1, refine_points=0)
         omegas = np.unique(np.concatenate([[0.0], omegas, poles_w]))
-    if period is not None:
-        omegas = omegas[omegas <= math.pi / period]
+    if r.sample_period is not None:
+        omegas = omegas[omegas <= math.pi / r.sample_period]
+    return omegas
 
-    # ---- order 0: a static gain
-    if r.order == 0:
-        value = float(np.linalg.norm(r.d, 2)) if r.d.size else 0.0
-        err = _EPS * value
-        return PeakGain(value, 0.0, max(value - err, 0.0), value + err, 0, True,
-                        "static gain (order 0): sigma_max(D)")
 
-    # ---- poles on the boundary
-    visible, hidden = _boundary_poles(r, boundary_rtol)
-    if visible:
-        lam = visible[0]
-        # a finite lower bound from the grid, avoiding the pole itself
-        ev = TransferEvaluator(r)
-        pts = 1j * omegas if period is None else np.exp(1j * omegas * period)
-        g, _ = ev.values_and_errors(pts)
-        sv = _sigma_max(g)
-        sv = sv[np.isfinite(sv)]
-        lower = float(np.max(sv)) if sv.size else 0.0
-        a_scale = float(np.linalg.norm(r.a))
-        dist = abs(lam.real) if period is None else abs(abs(lam) - 1.0)
-        exact = dist <= 100 * _EPS * max(a_scale, 1.0 if period is not None else 0.0)
-        where = "imaginary axis" if period is None else "unit circle"
-        return PeakGain(
-            math.inf, _pole_frequency(lam, period), math.inf if exact else lower,
-            math.inf, 0, bool(exact), "boundary pole",
-            f"pole {lam:.6g} is on the {where} (distance {dist:.3g}) and is controllable "
-            "and observable: the norm is infinite"
-            + ("" if exact else "; the pole is only numerically on the boundary"),
-        )
-    if hidden:
-        ev = TransferEvaluator(r)
-        pts = 1j * omegas if period is None else np.exp(1j * omegas * period)
-        hidden_w = np.array([_pole_frequency(h, period) for h in hidden])
-        keep = np.min(np.abs(omegas[:, None] - hidden_w[None, :]), axis=1) > 1e-6 * (
-            1.0 + np.abs(omegas))
-        g, err = ev.values_and_errors(pts[keep])
-        sv = _sigma_max(g)
-        fin = np.isfinite(sv)
-        j = int(np.argmax(np.where(fin, sv, -np.inf)))
-        value = float(sv[j]) if np.any(fin) else 0.0
-        return PeakGain(
-            value, float(omegas[keep][j]) if np.any(fin) else 0.0, value - float(err[j]),
-            math.inf, 0, False, "grid only (hidden boundary mode)",
-            "uncontrollable or unobservable mode(s) on the stability boundary at "
-            + ", ".join(f"{h:.6g}" for h in hidden)
-            + ": the Hamiltonian test cannot be used; remove hidden modes first "
-            "(minimal realization). The value is a grid lower bound only.",
-        )
+def _static_gain(r: Realization) -> PeakGain:
+    """Order 0: the peak gain is ``sigma_max(D)``."""
+    value = float(np.linalg.norm(r.d, 2)) if r.d.size else 0.0
+    err = _EPS * value
+    return PeakGain(value, 0.0, max(value - err, 0.0), value + err, 0, True,
+                    "static gain (order 0): sigma_max(D)")
 
-    if period is None:
-        core = _continuous_peak(r, omegas, rtol=rtol, imaginary_rtol=imaginary_rtol,
-                                max_iterations=max_iterations, stop_above=stop_above)
-        omega = core.omega
-        ev = TransferEvaluator(r)
-        value, lower = core.lower_value, core.lower_value
-        if math.isfinite(omega):
-            g, err = ev.values_and_errors(np.array([1j * omega]))
-            value = float(_sigma_max(g)[0])
-            lower = value - float(err[0])
-        else:
-            lower = value * (1 - 4 * _EPS)
-        return PeakGain(value, omega, max(lower, 0.0), core.upper, core.iterations,
-                        core.certified, "Hamiltonian (Bruinsma-Steinbuch 1990)", core.note)
 
-    # ---- discrete time: bilinear transform z = flip * (1 + s) / (1 - s)
-    poles = r.poles()
-    flip = -1.0 if np.min(np.abs(poles + 1.0)) < np.min(np.abs(poles - 1.0)) else 1.0
-    a, b, c, d = flip * r.a, r.b, flip * r.c, r.d
-    n = r.order
-    try:
-        lu = scipy.linalg.lu_factor(np.eye(n) + a, check_finite=False)
-        ac = scipy.linalg.lu_solve(lu, a - np.eye(n), check_finite=False)
-        inv_b = scipy.linalg.lu_solve(lu, b, check_finite=False)
-        c_inv = scipy.linalg.lu_solve(lu, c.T, trans=1, check_finite=False).T
-    except (np.linalg.LinAlgError, ValueError, scipy.linalg.LinAlgError) as exc:
-        raise NumericalTroubleError(
-            f"bilinear transform of the discrete model failed: I + A is singular ({exc})"
-        ) from exc
-    if not (np.all(np.isfinite(ac)) and np.all(np.isfinite(inv_b))):
-        raise NumericalTroubleError(
-            "bilinear transform of the discrete model failed: I + A is singular"
-        )
-    cont = Realization.from_arrays(ac, math.sqrt(2.0) * inv_b, math.sqrt(2.0) * c_inv,
-                                   d - c @ inv_b)
+def _boundary_response(r: Realization, omegas: FloatArray) -> tuple[NDArray[np.complex128], FloatArray]:
+    """The response (values and error estimates) at ``omegas`` on the stability boundary."""
+    period = r.sample_period
+    pts = 1j * omegas if period is None else np.exp(1j * omegas * period)
+    return TransferEvaluator(r).values_and_errors(pts)
+
+
+def _infinite_at_boundary_pole(r: Realization, lam: complex, omegas: FloatArray) -> PeakGain:
+    """A controllable and observable pole on the boundary: the norm is infinite."""
+    period = r.sample_period
+    # a finite lower bound from the grid, avoiding the pole itself
+    g, _ = _boundary_response(r, omegas)
+    sv = sigma_max(g)
+    sv = sv[np.isfinite(sv)]
+    lower = float(np.max(sv)) if sv.size else 0.0
+    a_scale = float(np.linalg.norm(r.a))
+    dist = abs(lam.real) if period is None else abs(abs(lam) - 1.0)
+    exact = dist <= 100 * _EPS * max(a_scale, 1.0 if period is not None else 0.0)
+    where = "imaginary axis" if period is None else "unit circle"
+    return PeakGain(
+        math.inf, _pole_frequency(lam, period), math.inf if exact else lower,
+        math.inf, 0, bool(exact), "boundary pole",
+        f"pole {lam:.6g} is on the {where} (distance {dist:.3g}) and is controllable "
+        "and observable: the norm is infinite"
+        + ("" if exact else "; the pole is only numerically on the boundary"),
+    )
+
+
+def _grid_bound_beside_hidden_modes(r: Realization, hidden: list[complex],
+                                    omegas: FloatArray) -> PeakGain:
+    """Hidden modes on the boundary: the Hamiltonian test does not apply; a grid value
+    (away from the hidden frequencies) is a lower bound only."""
+    period = r.sample_period
+    hidden_w = np.array([_pole_frequency(h, period) for h in hidden])
+    keep = np.min(np.abs(omegas[:, None] - hidden_w[None, :]), axis=1) > 1e-6 * (
+        1.0 + np.abs(omegas))
+    g, err = _boundary_response(r, omegas[keep])
+    sv = sigma_max(g)
+    fin = np.isfinite(sv)
+    j = int(np.argmax(np.where(fin, sv, -np.inf)))
+    value = float(sv[j]) if np.any(fin) else 0.0
+    return PeakGain(
+        value, float(omegas[keep][j]) if np.any(fin) else 0.0, value - float(err[j]),
+        math.inf, 0, False, "grid only (hidden boundary mode)",
+        "uncontrollable or unobservable mode(s) on the stability boundary at "
+        + ", ".join(f"{h:.6g}" for h in hidden)
+        + ": the Hamiltonian test cannot be used; remove hidden modes first "
+        "(minimal realization). The value is a grid lower bound only.",
+    )
+
+
+def _continuous_time_peak(r: Realization, omegas: FloatArray, **options: Any) -> PeakGain:
+    """Steps 1-2 on the imaginary axis; the value is re-evaluated with its error estimate."""
+    core = _continuous_peak(r, omegas, **options)
+    omega = core.omega
+    ev = TransferEvaluator(r)
+    value, lower = core.lower_value, core.lower_value
+    if math.isfinite(omega):
+        g, err = ev.values_and_errors(np.array([1j * omega]))
+        value = float(sigma_max(g)[0])
+        lower = value - float(err[0])
+    else:
+        lower = value * (1 - 4 * _EPS)
+    return PeakGain(value, omega, max(lower, 0.0), core.upper, core.iterations,
+                    core.certified, "Hamiltonian (Bruinsma-Steinbuch 1990)", core.note)
+
+
+def _discrete_time_peak(r: Realization, omegas: FloatArray, *, rtol: float,
+                        **options: Any) -> PeakGain:
+    """Steps 1-2 after the bilinear transform ``z = flip (1 + s) / (1 - s)``; the peak is
+    mapped back to the unit circle and re-evaluated on the original model, whose value
+    must agree with the transformed model's (else not certified)."""
+    period = r.sample_period
+    assert period is not None
+    mats, flip, _ = bilinear_to_continuous(r, "bilinear transform of the discrete model failed")
+    cont = Realization.from_arrays(*mats)
     theta = omegas * period - (math.pi if flip < 0 else 0.0)
     theta = theta[np.abs(theta) < math.pi * (1 - 1e-12)]
     nu = np.unique(np.abs(np.tan(theta / 2.0)))
-    core = _continuous_peak(cont, nu, rtol=rtol, imaginary_rtol=imaginary_rtol,
-                            max_iterations=max_iterations, stop_above=stop_above)
+    core = _continuous_peak(cont, nu, rtol=rtol, **options)
     theta_peak = 2.0 * math.atan(core.omega) if math.isfinite(core.omega) else math.pi
     if flip < 0:
         theta_peak += math.pi
     theta_peak = abs(math.remainder(theta_peak, 2.0 * math.pi))
     omega = theta_peak / period
     g, err = TransferEvaluator(r).values_and_errors(np.array([np.exp(1j * theta_peak)]))
-    value = float(_sigma_max(g)[0])
+    value = float(sigma_max(g)[0])
     lower = value - float(err[0])
     certified, note = core.certified, core.note
     if abs(value - core.lower_value) > 1e3 * rtol * max(value, core.lower_value):

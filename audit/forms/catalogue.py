@@ -304,7 +304,7 @@ def response_discrepancy(r_old: Realization, r_new: Realization) -> float:
     ------
     None
     """
-    from audit.evidence.record import choose_contour, frequency_to_point
+    from audit.evidence.contour import choose_contour, frequency_to_point
     from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
 
     try:

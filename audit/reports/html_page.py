@@ -250,7 +250,7 @@ def _responses(r: Realization, w: NDArray[np.float64]) -> NDArray[np.complex128]
 def _responses_with_estimate(r: Realization, w: NDArray[np.float64]
                              ) -> tuple[NDArray[np.complex128], NDArray[np.float64]]:
     """Response and a-posteriori rounding-error estimate (NaN where a pole is hit)."""
-    from audit.evidence.record import frequency_to_point
+    from audit.evidence.contour import frequency_to_point
     from audit.verdict.compare import evaluate_with_error_estimate
 
     pts = frequency_to_point(w, r)

@@ -24,14 +24,12 @@ import numpy as np
 from numpy.typing import NDArray
 
 from audit.errors import AuditError, NumericalTroubleError
+from audit.evidence.contour import Contour, choose_contour, frequency_to_point
 from audit.evidence.record import (
     DEFAULT_RTOL,
     EPS,
-    Contour,
     Evidence,
-    choose_contour,
     fmt_complex,
-    frequency_to_point,
     is_unstable_mode,
     minimal_order_evidence,
     skipped,
