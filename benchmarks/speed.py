@@ -496,7 +496,9 @@ def response_race(r: Realization, *, check_points: int, repeat: int) -> dict[str
     import control
     from threadpoolctl import threadpool_limits
 
-    from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
+    from audit.evidence.frequency import TransferEvaluator
+
+    from audit.evidence.frequency_grid import adaptive_frequency_grid
 
     grid = adaptive_frequency_grid([r])
     sys_ = control.StateSpace(r.a, r.b, r.c, r.d)

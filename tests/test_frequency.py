@@ -22,10 +22,10 @@ from hypothesis import strategies as st
 from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from audit.evidence.frequency import (
     TransferEvaluator,
-    adaptive_frequency_grid,
     boundary_points,
     frequency_response,
 )
+from audit.evidence.frequency_grid import adaptive_frequency_grid
 from audit.core.realization import Realization
 
 

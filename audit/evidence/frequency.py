@@ -1,4 +1,4 @@
-"""Frequency response of a state-space realization, and an adaptive frequency grid.
+"""Frequency response of a state-space realization: evaluation routes and error estimates.
 
 Method
 ------
@@ -59,80 +59,38 @@ that covers both the elimination and the Hessenberg reduction.  It is an estimat
 rigorous bound; it costs a second solve, so :meth:`TransferEvaluator.at` does not
 compute it.
 
-Frequency grid
---------------
-:func:`adaptive_frequency_grid` places logarithmically spaced points over the band
-spanned by all pole (and optional zero) frequencies, adds DC, a high-frequency limit
-(continuous time) or the Nyquist frequency (discrete time), and refines around each
-lightly damped pole over a window proportional to its bandwidth ``zeta * omega``
-(common practice, no source).
+The frequency grid is built in :mod:`audit.evidence.frequency_grid`.
 """
 
 from __future__ import annotations
 
 import math
 import weakref
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable
 
 import numpy as np
 import scipy.linalg
 from numpy.typing import ArrayLike, NDArray
 
-from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
-from audit.core.realization import Realization, same_time_domain
+from audit.errors import NumericalTroubleError
+from audit.core.realization import Realization
+from audit.evidence.banded_route import (
+    BANDED_MIN_ORDER,
+    CHUNK_ENTRIES,
+    BandedStoredRoute,
+)
+from audit.evidence.inputs import complex_points, real_frequencies
 
 ComplexArray = NDArray[np.complex128]
 FloatArray = NDArray[np.float64]
 
 _EPS = float(np.finfo(float).eps)
 
-# Largest number of complex entries held at once by the vectorised elimination
-# (chunks of points are processed in turn; 4e6 complex numbers = 64 MB).
-_CHUNK_ENTRIES = 4_000_000
-
 __all__ = [
     "TransferEvaluator",
     "frequency_response",
-    "adaptive_frequency_grid",
     "boundary_points",
 ]
-
-
-def _as_points(points: ArrayLike, name: str) -> ComplexArray:
-    try:
-        arr = np.asarray(points, dtype=complex)
-    except (TypeError, ValueError) as exc:
-        raise InvalidModelError(
-            f"{name}: could not be read as complex numbers ({exc})", field=name
-        ) from None
-    arr = np.atleast_1d(arr)
-    if arr.ndim != 1:
-        raise InvalidModelError(
-            f"{name}: has shape {arr.shape} but a 1-D sequence of points was expected",
-            field=name,
-        )
-    if not np.all(np.isfinite(arr)):
-        raise InvalidModelError(f"{name}: contains NaN or infinity", field=name)
-    return arr
-
-
-def _as_frequencies(omegas: ArrayLike, name: str = "omegas") -> FloatArray:
-    try:
-        arr = np.asarray(omegas, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise InvalidModelError(
-            f"{name}: could not be read as real frequencies in rad/s ({exc})", field=name
-        ) from None
-    arr = np.atleast_1d(arr)
-    if arr.ndim != 1:
-        raise InvalidModelError(
-            f"{name}: has shape {arr.shape} but a 1-D sequence of frequencies (rad/s) "
-            "was expected",
-            field=name,
-        )
-    if not np.all(np.isfinite(arr)):
-        raise InvalidModelError(f"{name}: contains NaN or infinity", field=name)
-    return arr
 
 
 def boundary_points(r: Realization, omegas: ArrayLike) -> ComplexArray:
@@ -155,7 +113,7 @@ def boundary_points(r: Realization, omegas: ArrayLike) -> ComplexArray:
     InvalidModelError
         If ``omegas`` is not a finite 1-D real sequence.
     """
-    w = _as_frequencies(omegas)
+    w = real_frequencies(omegas)
     if r.sample_period is None:
         return 1j * w
     return np.exp(1j * w * r.sample_period)
@@ -174,87 +132,6 @@ DIRECT_ABOVE = 1e10
 digits (its floor is about ``eps^2 ||X||``); a direct pivoted solve is used instead."""
 SPARSE_DENSITY = 0.25
 """A stored ``A`` with at most this fraction of nonzeros counts as sparse here."""
-
-
-BANDED_MIN_ORDER = 16
-"""Below this order the Schur route is used whatever the structure."""
-BANDED_COST_RATIO = 0.125
-"""The banded route is taken when ``(l + 1)(l + u + 1) <= BANDED_COST_RATIO * n`` after a
-reverse Cuthill-McKee reordering (its cost per point against the Schur route's)."""
-
-
-class _BandedStored:
-    """Gaussian elimination with partial pivoting on the STORED banded ``lam I - A``.
-
-    The states are reordered by reverse Cuthill-McKee (E. Cuthill and J. McKee,
-    "Reducing the bandwidth of sparse symmetric matrices", Proc. 24th ACM National
-    Conference, 1969; ``scipy.sparse.csgraph.reverse_cuthill_mckee``) -- a permutation,
-    so the data stay exactly as stored -- and ``lam I - A`` is factored as a band
-    matrix with lower bandwidth ``l`` and upper bandwidth ``u`` (partial pivoting
-    widens the upper band to ``l + u``; LAPACK ``zgbsv`` at each point).  Cost
-    O(n l (l + u)) per point instead of
-    O(n^2), and the rounding errors are those of the stored entries row by row, so
-    chain-like and banded models keep their digits where ``|G|`` is far below
-    ``||C|| ||X||`` (e.g. 1e-178 on the published heat-diffusion model, where a dense
-    orthogonal basis keeps none).
-    """
-
-    def __init__(self, band_rows: FloatArray, lower: int, upper: int, perm: NDArray[np.intp],
-                 b: FloatArray, c: FloatArray) -> None:
-        self.band_rows = band_rows  # (n, l+u+1): row i, columns i-l .. i+u
-        self.lower, self.upper = lower, upper
-        self.perm = perm
-        self.b = b[perm]
-        self.c = c[:, perm]
-
-    @classmethod
-    def detect(cls, a: FloatArray, b: FloatArray, c: FloatArray) -> "_BandedStored | None":
-        import scipy.sparse
-        from scipy.sparse.csgraph import reverse_cuthill_mckee
-
-        n = a.shape[0]
-        pattern = scipy.sparse.csr_matrix((a != 0) | (a.T != 0))
-        perm = np.asarray(reverse_cuthill_mckee(pattern, symmetric_mode=True), dtype=np.intp)
-        ap = a[np.ix_(perm, perm)]
-        rows, cols = np.nonzero(ap)
-        lower = int(max(0, (rows - cols).max(initial=0)))
-        upper = int(max(0, (cols - rows).max(initial=0)))
-        if (lower + 1) * (lower + upper + 1) > BANDED_COST_RATIO * n:
-            return None
-        width = lower + upper + 1
-        band = np.zeros((n, width))
-        band[rows, cols - rows + lower] = ap[rows, cols]
-        return cls(band, lower, upper, perm, b, c)
-
-    def values(self, lam: ComplexArray, d: FloatArray) -> ComplexArray:
-        from scipy.linalg.lapack import zgbsv
-
-        n = self.band_rows.shape[0]
-        l, u = self.lower, self.upper
-        m, p = self.b.shape[1], self.c.shape[0]
-        # LAPACK band storage with l extra rows for the fill of partial pivoting:
-        # ab[l + u + i - j, j] = M[i, j]
-        base = np.zeros((2 * l + u + 1, n), dtype=complex)
-        for t in range(l + u + 1):  # band_rows[i, t] = A[i, i - l + t]
-            off = t - l  # column j = i + off
-            i0, i1 = max(0, -off), min(n, n - off)
-            base[l + u - off, i0 + off:i1 + off] = -self.band_rows[i0:i1, t]
-        diag_row = l + u
-        b = self.b.astype(complex)
-        k = lam.shape[0]
-        out = np.empty((k, p, m), dtype=complex)
-        per = max(1, _CHUNK_ENTRIES // max(1, n * max(m, 1)))
-        for start in range(0, k, per):
-            stop = min(k, start + per)
-            xs = np.empty((stop - start, n, m), dtype=complex)
-            for idx in range(start, stop):
-                ab = base.copy()
-                ab[diag_row] += lam[idx]
-                _, _, x, info = zgbsv(l, u, ab, b, overwrite_ab=1, overwrite_b=0)
-                xs[idx - start] = x if info == 0 else np.nan
-            # one product for the whole chunk instead of one small product per point
-            out[start:stop] = np.matmul(self.c, xs) + d
-        return out
 
 
 _EVALUATOR_CACHE: "weakref.WeakKeyDictionary[Realization, TransferEvaluator]" = weakref.WeakKeyDictionary()
@@ -334,9 +211,9 @@ class TransferEvaluator:
             self._h = np.zeros((0, 0))
             self._b = np.zeros((0, r.n_inputs))
             self._c = np.zeros((r.n_outputs, 0))
-        self._band: _BandedStored | None = None
+        self._band: BandedStoredRoute | None = None
         if n >= BANDED_MIN_ORDER and self._sparse_a:
-            self._band = _BandedStored.detect(self._a_bal, self._b_bal, self._c_bal)
+            self._band = BandedStoredRoute.detect(self._a_bal, self._b_bal, self._c_bal)
         self._h_norm = float(np.linalg.norm(self._h)) if n else 0.0
         self._c_norm2 = float(np.linalg.norm(self._c, 2)) if n and r.n_outputs else 0.0
         self._h_maxabs = float(np.max(np.abs(self._h))) if n else 0.0
@@ -434,7 +311,7 @@ class TransferEvaluator:
         k = lam.shape[0]
         refine = self.refine if refine is None else refine
         out = np.empty((k, p, m), dtype=complex)
-        per = max(1, _CHUNK_ENTRIES // max(1, n * max(m, 1)))
+        per = max(1, CHUNK_ENTRIES // max(1, n * max(m, 1)))
         self.last_refined_points = 0
         self.last_refinement_sweeps = 0
         with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
@@ -604,7 +481,7 @@ class TransferEvaluator:
         return x, np.maximum(growth, 1.0)
 
     def _chunks(self, k: int) -> Iterable[slice]:
-        per = max(1, _CHUNK_ENTRIES // max(1, self._n * self._n))
+        per = max(1, CHUNK_ENTRIES // max(1, self._n * self._n))
         for start in range(0, k, per):
             yield slice(start, min(k, start + per))
 
@@ -667,7 +544,7 @@ class TransferEvaluator:
             If a point is (numerically) an eigenvalue of ``A``, so that
             ``lam I - A`` is singular in floating point.
         """
-        lam = _as_points(points, "points")
+        lam = complex_points(points, "points")
         if self._n == 0:
             g, _ = self._evaluate(lam, with_errors=False)
         elif self._band is not None and self.refine:
@@ -697,7 +574,7 @@ class TransferEvaluator:
         n, m, p = self._n, r.n_inputs, r.n_outputs
         k = lam.shape[0]
         err = np.empty(k)
-        per = max(1, _CHUNK_ENTRIES // max(1, n * max(m, p, 1)))
+        per = max(1, CHUNK_ENTRIES // max(1, n * max(m, p, 1)))
         rhs_y_base = np.ascontiguousarray(self._cs.T[::-1, :])  # (n, p)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
             for start in range(0, k, per):
@@ -740,7 +617,7 @@ class TransferEvaluator:
         InvalidModelError
             If ``points`` is not a finite 1-D sequence.
         """
-        lam = _as_points(points, "points")
+        lam = complex_points(points, "points")
         _, err = self._evaluate(lam, with_errors=True)
         return np.where(np.isfinite(err), err, np.inf)
 
@@ -768,7 +645,7 @@ class TransferEvaluator:
         InvalidModelError
             If ``points`` is not a finite 1-D sequence.
         """
-        lam = _as_points(points, "points")
+        lam = complex_points(points, "points")
         if self._n == 0:
             g, err = self._evaluate(lam, with_errors=errors)
         else:
@@ -814,161 +691,3 @@ def frequency_response(r: Realization, omegas: ArrayLike) -> ComplexArray:
 
     with limited_blas_threads():  # see audit.core.threads: threads only add contention here
         return TransferEvaluator(r).at(boundary_points(r, omegas))
-
-
-def _mode_frequencies(
-    roots: ArrayLike, sample_period: float | None
-) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """Natural frequency |s|, damped frequency |Im s| and |Re s| of each root.
-
-    Discrete-time roots are mapped by ``s = log(z) / T``; roots at ``z = 0`` are
-    dropped (they have no frequency).
-    """
-    lam = np.asarray(roots, dtype=complex).ravel()
-    lam = lam[np.isfinite(lam)]
-    if sample_period is not None:
-        lam = lam[np.abs(lam) > 0]
-        lam = np.log(lam) / sample_period
-    return np.abs(lam), np.abs(lam.imag), np.abs(lam.real)
-
-
-def adaptive_frequency_grid(
-    realizations: Sequence[Realization],
-    *,
-    points_per_decade: int = 20,
-    extra: ArrayLike = (),
-    zeros: ArrayLike = (),
-    decades_beyond: float = 2.0,
-    refine_points: int = 15,
-) -> FloatArray:
-    """A frequency grid [rad/s] adapted to the dynamics of one or more models.
-
-    The grid contains DC (``omega = 0``), logarithmically spaced points between
-    ``10**-decades_beyond`` times the slowest and ``10**decades_beyond`` times the
-    fastest pole/zero frequency (continuous time; discrete time stops exactly at the
-    Nyquist frequency ``pi / T``, which is included), every pole and zero frequency
-    ``|lam|`` and damped frequency ``|Im lam|`` (discrete: of ``log(z) / T``), and
-    ``refine_points`` points clustered within a few bandwidths ``|Re lam|``
-    (``~ zeta omega``) of each lightly damped mode.
-
-    Parameters
-    ----------
-    realizations : sequence of Realization
-        All in the same time domain (same sample period).
-    points_per_decade : int, keyword-only
-        Density of the logarithmic base grid.
-    extra : (q,) array_like, keyword-only
-        Extra frequencies [rad/s] to include (e.g. transmission-zero frequencies).
-    zeros : (z,) array_like of complex, keyword-only
-        Zeros in the s-plane (continuous) or z-plane (discrete); treated like poles.
-    decades_beyond : float, keyword-only
-        How far (in decades) the base grid reaches beyond the slowest and fastest
-        dynamics.
-    refine_points : int, keyword-only
-        Number of points placed around each lightly damped mode.
-
-    Returns
-    -------
-    (k,) float ndarray
-        Sorted, non-negative, without near-duplicates (relative spacing 1e-12).
-
-    Raises
-    ------
-    InvalidModelError
-        If no realization is given, or an option is out of range.
-    IncompatibleModelsError
-        If the realizations do not share a time domain.
-
-    Examples
-    --------
-    >>> from audit.core.realization import Realization
-    >>> r = Realization.from_arrays([[-1.0]], [[1.0]], [[1.0]], [[0.0]])
-    >>> w = adaptive_frequency_grid([r])
-    >>> bool(w[0] == 0.0 and w[-1] >= 100.0)
-    True
-    """
-    reals = list(realizations)
-    if not reals:
-        raise InvalidModelError(
-            "realizations: is empty but at least one model was expected",
-            field="realizations",
-        )
-    if points_per_decade < 1:
-        raise InvalidModelError(
-            f"points_per_decade={points_per_decade!r}: expected an integer >= 1",
-            field="points_per_decade",
-        )
-    if refine_points < 0:
-        raise InvalidModelError(
-            f"refine_points={refine_points!r}: expected an integer >= 0",
-            field="refine_points",
-        )
-    if not (decades_beyond >= 0 and math.isfinite(decades_beyond)):
-        raise InvalidModelError(
-            f"decades_beyond={decades_beyond!r}: expected a finite number >= 0",
-            field="decades_beyond",
-        )
-    for other in reals[1:]:
-        if not same_time_domain(reals[0], other):
-            raise IncompatibleModelsError(
-                "realizations: all models on one frequency grid must share the time "
-                f"domain, but sample periods {reals[0].sample_period!r} and "
-                f"{other.sample_period!r} were given"
-            )
-    period = reals[0].sample_period
-    extra_w = np.abs(_as_frequencies(extra, "extra"))
-    zeros_arr = np.asarray(zeros, dtype=complex).ravel()
-    if zeros_arr.size and not np.all(np.isfinite(zeros_arr)):
-        raise InvalidModelError("zeros: contains NaN or infinity", field="zeros")
-
-    roots = [r.poles() for r in reals] + [zeros_arr]
-    all_roots = np.concatenate(roots) if roots else np.zeros(0, dtype=complex)
-    wn, wd, sig = _mode_frequencies(all_roots, period)
-    nyquist = math.pi / period if period is not None else math.inf
-
-    positive = np.concatenate([wn[wn > 0], wd[wd > 0], extra_w[extra_w > 0]])
-    positive = positive[np.isfinite(positive)]
-    if period is not None:
-        positive = positive[positive <= nyquist]
-    if positive.size:
-        w_lo, w_hi = float(positive.min()), float(positive.max())
-    elif period is not None:
-        w_lo, w_hi = nyquist * 1e-3, nyquist
-    else:
-        w_lo, w_hi = 1.0, 1.0
-    lo = w_lo * 10.0 ** (-decades_beyond)
-    hi = min(w_hi * 10.0 ** decades_beyond, nyquist)
-    if period is not None:
-        lo = min(lo, nyquist * 1e-3)
-        hi = nyquist
-    decades = max(math.log10(hi / lo), 0.0)
-    count = max(2, int(math.ceil(decades * points_per_decade)) + 1)
-    pieces = [np.array([0.0]), np.logspace(math.log10(lo), math.log10(hi), count)]
-    pieces += [wn, wd, extra_w]
-    if period is not None:
-        pieces.append(np.array([nyquist]))
-
-    if refine_points > 0:
-        # Points within a few bandwidths of each mode, denser near the centre:
-        # offsets in units of |Re lam| (the half-power half-width of a lightly
-        # damped resonance; common practice, no source).
-        t = np.sinh(np.linspace(-3.0, 3.0, refine_points)) * (4.0 / math.sinh(3.0))
-        light = (sig < 0.5 * wn) & (wn > 0)  # damping ratio below 0.5
-        for centre, width in zip(
-            np.concatenate([wd[light], wn[light]]), np.concatenate([sig[light], sig[light]])
-        ):
-            width = max(float(width), 1e-12 * float(centre))
-            pieces.append(centre + width * t)
-
-    grid = np.concatenate([np.ravel(p) for p in pieces])
-    grid = grid[np.isfinite(grid) & (grid >= 0)]
-    if period is not None:
-        # nothing beyond Nyquist; the Nyquist frequency itself is appended last
-        grid = grid[grid < nyquist * (1 - 1e-12)]
-    grid = np.unique(np.append(grid, 0.0))
-    keep = np.ones(grid.size, dtype=bool)
-    keep[1:] = np.diff(grid) > 1e-12 * grid[1:]
-    grid = grid[keep]
-    if period is not None:
-        grid = np.append(grid, nyquist)
-    return grid.astype(float)

@@ -53,6 +53,7 @@ from numpy.typing import NDArray
 
 from audit.errors import InvalidModelError, NumericalTroubleError
 from audit.core.realization import Realization, check_comparable
+from audit.evidence.inputs import finite_number
 
 FloatArray = NDArray[np.float64]
 Outcome = Literal["same", "different", "unresolved"]
@@ -83,34 +84,6 @@ def _check_count(count: object, name: str = "count") -> int:
             f"{name}: got {count!r} but a non-negative integer was expected", field=name
         )
     return int(count)
-
-
-def _check_positive_finite(value: object, name: str) -> float:
-    try:
-        x = float(value)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        raise InvalidModelError(
-            f"{name}: got {value!r} but a positive finite number was expected", field=name
-        ) from None
-    if not math.isfinite(x) or x <= 0.0:
-        raise InvalidModelError(
-            f"{name}: got {value!r} but a positive finite number was expected", field=name
-        )
-    return x
-
-
-def _check_rtol(rtol: object) -> float:
-    try:
-        x = float(rtol)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        raise InvalidModelError(
-            f"rtol: got {rtol!r} but a finite number >= 0 was expected", field="rtol"
-        ) from None
-    if not math.isfinite(x) or x < 0.0:
-        raise InvalidModelError(
-            f"rtol: got {rtol!r} but a finite number >= 0 was expected", field="rtol"
-        )
-    return x
 
 
 # ------------------------------------------------------------------- float route
@@ -213,7 +186,7 @@ def markov_parameters(
     [0.5, 0.5, -0.5, 0.5]
     """
     count = _check_count(count)
-    w0 = _check_positive_finite(frequency_scale, "frequency_scale")
+    w0 = finite_number(frequency_scale, "frequency_scale")
     params, _ = _scaled_parameters_with_errors(r, count, w0, with_errors=False)
     return params
 
@@ -347,6 +320,11 @@ def _overall(outcomes: list[Outcome]) -> Outcome:
     return "same"
 
 
+def _first_different(outcomes: list[Outcome]) -> int | None:
+    """Index of the first term whose outcome is ``different`` (None when none is)."""
+    return next((k for k, o in enumerate(outcomes) if o == "different"), None)
+
+
 def _default_count(r1: Realization, r2: Realization, count: int | None) -> int:
     if count is None:
         return r1.order + r2.order + 1
@@ -399,12 +377,12 @@ def compare_markov_parameters(
     'same'
     """
     check_comparable(r1, r2)
-    tol = _check_rtol(rtol)
+    tol = finite_number(rtol, "rtol", zero_allowed=True)
     count = _default_count(r1, r2, count)
     w0 = (
         common_frequency_scale(r1, r2)
         if frequency_scale is None
-        else _check_positive_finite(frequency_scale, "frequency_scale")
+        else finite_number(frequency_scale, "frequency_scale")
     )
     m1, e1 = _scaled_parameters_with_errors(r1, count, w0)
     m2, e2 = _scaled_parameters_with_errors(r2, count, w0)
@@ -426,7 +404,7 @@ def compare_markov_parameters(
             outcomes.append("different")
         else:
             outcomes.append("unresolved")
-    first = next((k for k, o in enumerate(outcomes) if o == "different"), None)
+    first = _first_different(outcomes)
     channel: tuple[int, int] | None = None
     if first is not None:
         i, j = np.unravel_index(int(np.argmax(np.abs(diff[first]))), diff[first].shape)
@@ -508,7 +486,7 @@ def exact_markov_parameters(
             f"with magnitude <= {4 * _MAX_EXPONENT} was expected",
             field="frequency_scale_exponent",
         )
-    budget = _check_positive_finite(max_seconds, "max_seconds")
+    budget = finite_number(max_seconds, "max_seconds")
     start = time.monotonic()
     out: list[flint.fmpq_mat] = []
     if count == 0:
@@ -547,6 +525,56 @@ def _ratio_sqrt_to_float(num: "flint.fmpq", den: "flint.fmpq") -> float:
         return math.sqrt(float(q))
     except OverflowError:  # pragma: no cover - ratio beyond double range
         return math.inf
+
+
+def _exact_terms_of_both(r1: Realization, r2: Realization, count: int, exponent: int,
+                         budget: float) -> tuple[list["flint.fmpq_mat"], list["flint.fmpq_mat"]]:
+    """The exact scaled terms of both models within one time budget of ``budget`` s."""
+    start = time.monotonic()
+    m1 = exact_markov_parameters(
+        r1, count, frequency_scale_exponent=exponent, max_seconds=budget
+    )
+    remaining = budget - (time.monotonic() - start)
+    if remaining <= 0.0:
+        raise NumericalTroubleError(
+            f"exact Markov comparison: max_seconds={budget:g} exceeded after the first model"
+        )
+    m2 = exact_markov_parameters(
+        r2, count, frequency_scale_exponent=exponent, max_seconds=remaining
+    )
+    return m1, m2
+
+
+def _exact_term_outcomes(m1: list["flint.fmpq_mat"], m2: list["flint.fmpq_mat"],
+                         tol: float) -> tuple[list[float], list[Outcome], "flint.fmpq"]:
+    """Per term: the relative difference (rounded) and the exact decision
+    ``||M1_k - M2_k||_F^2 <= tol^2 max ||M_k||_F^2``; also that maximum (exact)."""
+    diff2 = [_squared_frobenius(a - b) for a, b in zip(m1, m2)]
+    norms2 = [_squared_frobenius(t) for t in m1 + m2]
+    reference2 = max(norms2, default=flint.fmpq(0))
+    tol2 = flint.fmpq(*tol.as_integer_ratio()) ** 2
+    outcomes: list[Outcome] = []
+    rel: list[float] = []
+    for d2 in diff2:
+        if reference2 == 0:
+            rel.append(0.0)
+            outcomes.append("same")
+            continue
+        rel.append(_ratio_sqrt_to_float(d2, reference2))
+        outcomes.append("same" if d2 <= tol2 * reference2 else "different")
+    return rel, outcomes, reference2
+
+
+def _largest_exact_entry(d: "flint.fmpq_mat") -> tuple[int, int] | None:
+    """``(output, input)`` of the entry of largest magnitude (the first such)."""
+    best = flint.fmpq(-1)
+    channel: tuple[int, int] | None = None
+    for i in range(d.nrows()):
+        for j in range(d.ncols()):
+            v = abs(d[i, j])
+            if v > best:
+                best, channel = v, (i, j)
+    return channel
 
 
 def compare_markov_parameters_exact(
@@ -598,46 +626,15 @@ def compare_markov_parameters_exact(
     0
     """
     check_comparable(r1, r2)
-    tol = _check_rtol(rtol)
+    tol = finite_number(rtol, "rtol", zero_allowed=True)
     count = _default_count(r1, r2, count)
-    budget = _check_positive_finite(max_seconds, "max_seconds")
+    budget = finite_number(max_seconds, "max_seconds")
     w0 = common_frequency_scale(r1, r2)
     exponent = math.frexp(w0)[1] - 1  # w0 == 2**exponent exactly
-    start = time.monotonic()
-    m1 = exact_markov_parameters(
-        r1, count, frequency_scale_exponent=exponent, max_seconds=budget
-    )
-    remaining = budget - (time.monotonic() - start)
-    if remaining <= 0.0:
-        raise NumericalTroubleError(
-            f"exact Markov comparison: max_seconds={budget:g} exceeded after the first model"
-        )
-    m2 = exact_markov_parameters(
-        r2, count, frequency_scale_exponent=exponent, max_seconds=remaining
-    )
-    diff2 = [_squared_frobenius(a - b) for a, b in zip(m1, m2)]
-    norms2 = [_squared_frobenius(t) for t in m1 + m2]
-    reference2 = max(norms2, default=flint.fmpq(0))
-    tol2 = flint.fmpq(*tol.as_integer_ratio()) ** 2
-    outcomes: list[Outcome] = []
-    rel: list[float] = []
-    for d2 in diff2:
-        if reference2 == 0:
-            rel.append(0.0)
-            outcomes.append("same")
-            continue
-        rel.append(_ratio_sqrt_to_float(d2, reference2))
-        outcomes.append("same" if d2 <= tol2 * reference2 else "different")
-    first = next((k for k, o in enumerate(outcomes) if o == "different"), None)
-    channel: tuple[int, int] | None = None
-    if first is not None:
-        d = m1[first] - m2[first]
-        best = flint.fmpq(-1)
-        for i in range(d.nrows()):
-            for j in range(d.ncols()):
-                v = abs(d[i, j])
-                if v > best:
-                    best, channel = v, (i, j)
+    m1, m2 = _exact_terms_of_both(r1, r2, count, exponent, budget)
+    rel, outcomes, reference2 = _exact_term_outcomes(m1, m2, tol)
+    first = _first_different(outcomes)
+    channel = None if first is None else _largest_exact_entry(m1[first] - m2[first])
     return MarkovComparison(
         method="exact_rational",
         frequency_scale=w0,

@@ -23,7 +23,6 @@ point is zero.  The assignment minimizes the sum of these costs.  With unequal c
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -32,6 +31,7 @@ import scipy.optimize
 from numpy.typing import ArrayLike, NDArray
 
 from audit.errors import InvalidModelError, NumericalTroubleError
+from audit.evidence.inputs import finite_number, finite_sequence
 
 __all__ = ["PointMatching", "PointPair", "match_points", "relative_distance_matrix"]
 
@@ -122,24 +122,10 @@ class PointMatching:
 
 
 def _as_points(points: ArrayLike, name: str) -> NDArray[np.complex128]:
-    try:
-        arr = np.asarray(points, dtype=complex)
-    except (TypeError, ValueError):
-        raise InvalidModelError(
-            f"{name}: could not be read as complex numbers; a 1-D list of numbers was "
-            "expected",
-            field=name,
-        ) from None
-    if arr.ndim == 0:
-        arr = arr.reshape(1)
-    if arr.ndim != 1:
-        raise InvalidModelError(
-            f"{name}: has shape {arr.shape} but a 1-D list of points was expected",
-            field=name,
-        )
-    if not np.all(np.isfinite(arr)):
-        raise InvalidModelError(f"{name}: contains NaN or infinity", field=name)
-    return arr
+    return finite_sequence(
+        points, name, dtype=complex,
+        unreadable="could not be read as complex numbers; a 1-D list of numbers was expected",
+        expected="a 1-D list of points")
 
 
 def relative_distance_matrix(
@@ -204,15 +190,7 @@ def match_points(
         )
         used_floor = DEFAULT_RELATIVE_FLOOR * biggest if biggest > 0.0 else 1.0
     else:
-        try:
-            used_floor = float(floor)
-        except (TypeError, ValueError):
-            used_floor = math.nan
-        if not math.isfinite(used_floor) or used_floor <= 0.0:
-            raise InvalidModelError(
-                f"floor: got {floor!r} but a positive finite number was expected",
-                field="floor",
-            )
+        used_floor = finite_number(floor, "floor")
     if p1.size == 0 or p2.size == 0:
         rows = cols = np.zeros(0, dtype=int)
         cost = np.zeros((p1.size, p2.size))

@@ -51,7 +51,8 @@ from numpy.typing import ArrayLike, NDArray
 
 from audit.core.threads import wide_blas_threads
 from audit.errors import InvalidModelError, NumericalTroubleError
-from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
+from audit.evidence.frequency import TransferEvaluator
+from audit.evidence.frequency_grid import adaptive_frequency_grid
 from audit.evidence.level_crossings import (
     bilinear_to_continuous,
     hamiltonian_matrix,
@@ -413,7 +414,7 @@ def peak_gain(
         (plus the evaluation error).  ``1e-15 <= rtol < 1``.
     grid : (k,) array_like or None, keyword-only
         Frequencies [rad/s] for the initial lower bound; the pole frequencies are
-        always added.  ``None``: :func:`audit.evidence.frequency.adaptive_frequency_grid` with
+        always added.  ``None``: :func:`audit.evidence.frequency_grid.adaptive_frequency_grid` with
         5 points per decade and 3 refinement points per lightly damped mode.
     imaginary_rtol : float, keyword-only
         An eigenvalue ``lam`` of the Hamiltonian is a candidate axis crossing when

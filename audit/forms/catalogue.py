@@ -285,7 +285,7 @@ def response_discrepancy(r_old: Realization, r_new: Realization) -> float:
     """Largest relative difference of the two frequency responses on an adaptive grid.
 
     ``max_k ||G_new(s_k) - G_old(s_k)||_2 / max_k ||G_old(s_k)||_2`` over the adaptive
-    grid of :func:`audit.evidence.frequency.adaptive_frequency_grid` (every pole frequency of both
+    grid of :func:`audit.evidence.frequency_grid.adaptive_frequency_grid` (every pole frequency of both
     models, DC, the high-frequency limit or Nyquist), on the imaginary axis / unit circle
     or, when a pole lies on it, on the slightly shifted contour the verdict uses. The same
     metric as the verdict's grid evidence: an independent self-check of a produced form.
@@ -305,7 +305,8 @@ def response_discrepancy(r_old: Realization, r_new: Realization) -> float:
     None
     """
     from audit.evidence.contour import choose_contour, frequency_to_point
-    from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
+    from audit.evidence.frequency import TransferEvaluator
+    from audit.evidence.frequency_grid import adaptive_frequency_grid
 
     try:
         contour = choose_contour([r_old, r_new])

@@ -220,7 +220,7 @@ def _plain(text: str) -> str:
 
 
 def _plot_grid(models: Sequence[Realization]) -> NDArray[np.float64]:
-    from audit.evidence.frequency import adaptive_frequency_grid
+    from audit.evidence.frequency_grid import adaptive_frequency_grid
 
     w = adaptive_frequency_grid(list(models), points_per_decade=_POINTS_PER_DECADE)
     w = w[w > 0]

@@ -37,7 +37,7 @@ The bandwidth is the smallest frequency ``w > 0`` at which the largest singular 
 the frequency response (for one input and one output: ``|G|``) has fallen to
 ``1/sqrt(2)`` of its DC value, i.e. 3.01 dB below the DC gain (the usual -3 dB definition;
 common practice, no source). It is
-found on the adaptive frequency grid of :func:`audit.evidence.frequency.adaptive_frequency_grid`
+found on the adaptive frequency grid of :func:`audit.evidence.frequency_grid.adaptive_frequency_grid`
 (which in discrete time ends at the Nyquist frequency) and then refined by bisection in
 ``log w`` to a relative width of 1e-12. It is undefined (``None``) when the DC gain is
 zero or infinite (a pole at DC) or when the gain never falls that far on the grid.
@@ -386,7 +386,7 @@ def bandwidth(r: Realization, *, rtol: float = BANDWIDTH_BISECTION_RTOL) -> floa
     >>> round(bandwidth(r), 9)
     4.0
     """
-    from audit.evidence.frequency import adaptive_frequency_grid
+    from audit.evidence.frequency_grid import adaptive_frequency_grid
 
     if not (0.0 < rtol < 1.0):
         raise InvalidModelError(f"rtol={rtol!r}: expected a number in (0, 1)", field="rtol")

@@ -172,7 +172,8 @@ def _sigma_max(g: NDArray[np.complex128]) -> NDArray[np.float64]:
 
 
 def _shared(r1: Realization, r2: Realization, min1: Any, min2: Any) -> _Shared:
-    from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
+    from audit.evidence.frequency import TransferEvaluator
+    from audit.evidence.frequency_grid import adaptive_frequency_grid
     from audit.evidence.peak_gain import peak_gain
     from audit.structure.minimal import transmission_zeros
 
