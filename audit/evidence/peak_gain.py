@@ -27,6 +27,14 @@ point stays below ``gamma`` (by more than its rounding-error estimate, see
 upper bound: ``lower <= ||G|| <= upper`` with ``upper / lower <= 1 + 2 rtol``
 (up to the evaluation error).
 
+In the code: step 1 is :func:`_grid_lower_bound` (on :func:`_initial_frequencies`),
+step 2 :func:`_level_set_iteration` (candidates :func:`_crossing_candidates`, test points
+:func:`_test_frequencies`, then certification); :func:`_continuous_time_peak` and
+:func:`_discrete_time_peak` wrap them for the two time domains, and boundary poles end the
+search early (:func:`_infinite_at_boundary_pole`, :func:`_grid_bound_beside_hidden_modes`).
+The Hamiltonian, its axis eigenvalues and the bilinear transform live in
+:mod:`audit.evidence.level_crossings` (shared with :mod:`audit.evidence.band_peak`).
+
 Eigenvalues are taken as imaginary with a loose relative threshold
 (``imaginary_rtol``): spurious candidates only cost evaluations, because a genuine
 crossing always shows ``sigma_max >= gamma`` at some test point.
