@@ -37,7 +37,7 @@ _EXPORTS: dict[str, str] = {
     "zeros_poles_gain_from_realization": "audit.core.conversions",
     # structure, evidence, verdict
     "minimal_realization": "audit.structure.minimal",
-    "transmission_zeros": "audit.structure.minimal",
+    "transmission_zeros": "audit.structure.zeros",
     "frequency_response": "audit.evidence.frequency",
     "peak_gain": "audit.evidence.peak_gain",
     "markov_parameters": "audit.evidence.markov",

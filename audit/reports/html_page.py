@@ -627,7 +627,7 @@ def _unaccepted_problems(data: Mapping[str, Any]) -> list[str]:
 def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) -> str:
     from matplotlib.patches import Circle, Rectangle
 
-    from audit.structure.minimal import transmission_zeros
+    from audit.structure.zeros import transmission_zeros
 
     fig = _new_figure(_FIG_WIDTH, 6.0)
     ax = fig.add_subplot(1, 1, 1)

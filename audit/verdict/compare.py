@@ -176,7 +176,7 @@ def _sigma_max(g: NDArray[np.complex128]) -> NDArray[np.float64]:
 def _shared(r1: Realization, r2: Realization, min1: Any, min2: Any) -> _Shared:
     from audit.evidence.frequency import TransferEvaluator, adaptive_frequency_grid
     from audit.evidence.peak_gain import peak_gain
-    from audit.structure.minimal import transmission_zeros
+    from audit.structure.zeros import transmission_zeros
 
     contour = choose_contour([r1, r2])
     s1, s2 = contour.apply(r1), contour.apply(r2)
@@ -1420,7 +1420,7 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
 
     grid_ev = _isolated("frequency_grid", "Frequency response on the adaptive grid", grid_evidence)
     markov = _isolated("markov_parameters", "Scaled Markov parameters", lambda: _markov(sh, opts))
-    from audit.structure.minimal import transmission_zeros
+    from audit.structure.zeros import transmission_zeros
 
     def needs_minimal(fn: Any) -> Any:
         if min1 is None or min2 is None:
