@@ -257,19 +257,12 @@ def zeros_poles_gain_from_realization(
             f"r: got {type(r).__name__} but expected an audit.core.realization.Realization",
             field="r",
         )
-    zeros: list[list[list[complex]]] = []
-    poles: list[list[list[complex]]] = []
-    gains: list[list[float]] = []
-    for i in range(r.n_outputs):
-        zrow, prow, grow = [], [], []
-        for j in range(r.n_inputs):
-            z, p, k = _channel_zeros_poles_gain(r, i, j, rank_rtol=rank_rtol)
-            zrow.append([complex(v) for v in z])
-            prow.append([complex(v) for v in p])
-            grow.append(float(k))
-        zeros.append(zrow)
-        poles.append(prow)
-        gains.append(grow)
+    cells = [[_channel_zeros_poles_gain(r, i, j, rank_rtol=rank_rtol)
+              for j in range(r.n_inputs)] for i in range(r.n_outputs)]
+    zeros, poles, gains = _per_channel_lists(cells, 3)
+    zeros = [[[complex(v) for v in z] for z in row] for row in zeros]
+    poles = [[[complex(v) for v in pl] for pl in row] for row in poles]
+    gains = [[float(k) for k in row] for row in gains]
     return ZerosPolesGainData(zeros, poles, gains, r.sample_period)
 
 
@@ -277,6 +270,23 @@ def _real_polynomial(roots: list[complex]) -> FloatArray:
     if not roots:
         return np.array([1.0])
     return np.asarray(np.real(np.poly(np.array(roots, dtype=complex))), dtype=float)
+
+
+def _per_channel_lists(cells: list[list[tuple[Any, ...]]], width: int) -> tuple[list[list[Any]], ...]:
+    """A [p][m] grid of per-channel tuples of ``width`` items as ``width`` [p][m] grids."""
+    return tuple([[cell[k] for cell in row] for row in cells] for k in range(width))
+
+
+def _channel_polynomials(z: list[complex], p: list[complex], k: float) -> tuple[list[float], list[float]]:
+    """Numerator ``k prod(s - z)`` padded to the length of the monic denominator
+    ``prod(s - p)``; a vanishing channel is ``[0.0] / [1.0]``."""
+    den = _real_polynomial(p)
+    num = k * _real_polynomial(z)
+    padded = np.zeros(den.size)
+    padded[den.size - num.size:] = num
+    if k == 0.0:
+        padded, den = np.zeros(1), np.ones(1)
+    return [float(v) for v in padded], [float(v) for v in den]
 
 
 def transfer_function_from_realization(
@@ -316,21 +326,9 @@ def transfer_function_from_realization(
     [[[0.0, 3.0]]]
     """
     data = zeros_poles_gain_from_realization(r, rank_rtol=rank_rtol)
-    numerators: list[list[list[float]]] = []
-    denominators: list[list[list[float]]] = []
-    for zrow, prow, grow in zip(data.zeros, data.poles, data.gain):
-        nrow, drow = [], []
-        for z, p, k in zip(zrow, prow, grow):
-            den = _real_polynomial(p)
-            num = k * _real_polynomial(z)
-            padded = np.zeros(den.size)
-            padded[den.size - num.size:] = num
-            if k == 0.0:
-                padded, den = np.zeros(1), np.ones(1)
-            nrow.append([float(v) for v in padded])
-            drow.append([float(v) for v in den])
-        numerators.append(nrow)
-        denominators.append(drow)
+    cells = [[_channel_polynomials(z, p, k) for z, p, k in zip(zrow, prow, grow)]
+             for zrow, prow, grow in zip(data.zeros, data.poles, data.gain)]
+    numerators, denominators = _per_channel_lists(cells, 2)
     return TransferFunctionData(numerators, denominators, r.sample_period)
 
 

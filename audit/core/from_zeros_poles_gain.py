@@ -201,6 +201,88 @@ def _siso_cascade(
     return a, b, c * gain, d * gain
 
 
+def _common_layout(zeros: Any, poles: Any, gain: Any) -> tuple[int, int]:
+    """Step 1: the (p, m) layout shared by zeros, poles and gain (all three checked)."""
+    p, m = _grid_shape(zeros, "zeros_poles_gain.zeros")
+    shapes = {
+        "zeros_poles_gain.poles": _grid_shape(poles, "zeros_poles_gain.poles"),
+        "zeros_poles_gain.gain": _grid_shape(gain, "zeros_poles_gain.gain"),
+    }
+    for name, shape in shapes.items():
+        if shape != (p, m):
+            raise InvalidModelError(
+                f"{name}: is {shape[0]}x{shape[1]} (outputs x inputs) but "
+                f"zeros_poles_gain.zeros is {p}x{m}; all three must have the same layout",
+                field=name,
+            )
+    return p, m
+
+
+def _channel_factors(
+    zeros: Any, poles: Any, gain: Any, ch: str, conjugate_rtol: float
+) -> tuple[FloatArray, ComplexArray, FloatArray, ComplexArray, float] | None:
+    """Step 2, one channel ``ch`` ("[i][j]"): checked zeros, poles and gain, split into
+    real values and conjugate pairs -- ``(zeros_real, zero_pairs, poles_real, pole_pairs,
+    gain)`` as :func:`_siso_cascade` takes them, or None for a vanishing channel (gain 0)."""
+    z = _complex_list(zeros, f"zeros_poles_gain.zeros{ch}")
+    pl = _complex_list(poles, f"zeros_poles_gain.poles{ch}")
+    if isinstance(gain, bool) or not isinstance(gain, numbers.Real):
+        raise InvalidModelError(
+            f"zeros_poles_gain.gain{ch}: got {gain!r} but expected a real number",
+            field=f"zeros_poles_gain.gain{ch}",
+        )
+    k = float(gain)
+    if not math.isfinite(k):
+        raise InvalidModelError(
+            f"zeros_poles_gain.gain{ch}: is {k!r}; expected a finite number",
+            field=f"zeros_poles_gain.gain{ch}",
+        )
+    if z.size > pl.size:
+        raise InvalidModelError(
+            f"zeros_poles_gain.zeros{ch}: channel {ch} has {z.size} zeros but only "
+            f"{pl.size} poles; it is improper (only proper systems have a "
+            "state-space realization)",
+            field=f"zeros_poles_gain.zeros{ch}",
+        )
+    zr, zp = _real_and_pairs(z, f"zeros_poles_gain.zeros{ch}", ch, conjugate_rtol)
+    pr, pp = _real_and_pairs(pl, f"zeros_poles_gain.poles{ch}", ch, conjugate_rtol)
+    if k == 0.0:
+        return None
+    return zr, zp, pr, pp, k
+
+
+def _stacked_channels(
+    cascades: list[tuple[int, int, _Section]], p: int, m: int
+) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """Step 3: the channel cascades side by side -- A block diagonal, the cascade of
+    channel ``[i][j]`` driven by input j and read by output i."""
+    a_blocks = [section[0] for _, _, section in cascades]
+    n = sum(blk.shape[0] for blk in a_blocks)
+    a = _block_diagonal(a_blocks, n, n)
+    b = np.zeros((n, m))
+    c = np.zeros((p, n))
+    offset = 0
+    for i, j, (blk, b_s, c_s, _) in cascades:
+        size = blk.shape[0]
+        b[offset:offset + size, j] = b_s[:, 0]
+        c[i, offset:offset + size] = c_s[0, :]
+        offset += size
+    return a, b, c
+
+
+def _stored_factors(zeros: Any, poles: Any, gain: Any, p: int, m: int,
+                    period: float | None) -> Any:
+    """Last step: the factors as stored, carried by the realization (`Realization.stored`)."""
+    from audit.core.stored_evaluation import StoredZerosPolesGain
+
+    return StoredZerosPolesGain(
+        zeros=tuple(tuple(_complex_list(zeros[i][j], "zeros") for j in range(m)) for i in range(p)),
+        poles_=tuple(tuple(_complex_list(poles[i][j], "poles") for j in range(m)) for i in range(p)),
+        gain=np.array([[float(gain[i][j]) for j in range(m)] for i in range(p)]),
+        sample_period=period,
+    )
+
+
 def realization_from_zeros_poles_gain(
     zeros: Sequence[Sequence[Sequence[Any]]],
     poles: Sequence[Sequence[Sequence[Any]]],
@@ -248,75 +330,22 @@ def realization_from_zeros_poles_gain(
     2
     """
     period = _check_sample_period(sample_period)
-    p, m = _grid_shape(zeros, "zeros_poles_gain.zeros")
-    shapes = {
-        "zeros_poles_gain.poles": _grid_shape(poles, "zeros_poles_gain.poles"),
-        "zeros_poles_gain.gain": _grid_shape(gain, "zeros_poles_gain.gain"),
-    }
-    for name, shape in shapes.items():
-        if shape != (p, m):
-            raise InvalidModelError(
-                f"{name}: is {shape[0]}x{shape[1]} (outputs x inputs) but "
-                f"zeros_poles_gain.zeros is {p}x{m}; all three must have the same layout",
-                field=name,
-            )
-    a_blocks: list[FloatArray] = []
-    b_cols: list[tuple[int, FloatArray]] = []
-    c_rows: list[tuple[int, FloatArray]] = []
+    p, m = _common_layout(zeros, poles, gain)
+    cascades: list[tuple[int, int, _Section]] = []
     d = np.zeros((p, m))
     for i in range(p):
         for j in range(m):
-            ch = f"[{i}][{j}]"
-            z = _complex_list(zeros[i][j], f"zeros_poles_gain.zeros{ch}")
-            pl = _complex_list(poles[i][j], f"zeros_poles_gain.poles{ch}")
-            k_raw = gain[i][j]
-            if isinstance(k_raw, bool) or not isinstance(k_raw, numbers.Real):
-                raise InvalidModelError(
-                    f"zeros_poles_gain.gain{ch}: got {k_raw!r} but expected a real number",
-                    field=f"zeros_poles_gain.gain{ch}",
-                )
-            k = float(k_raw)
-            if not math.isfinite(k):
-                raise InvalidModelError(
-                    f"zeros_poles_gain.gain{ch}: is {k!r}; expected a finite number",
-                    field=f"zeros_poles_gain.gain{ch}",
-                )
-            if z.size > pl.size:
-                raise InvalidModelError(
-                    f"zeros_poles_gain.zeros{ch}: channel {ch} has {z.size} zeros but only "
-                    f"{pl.size} poles; it is improper (only proper systems have a "
-                    "state-space realization)",
-                    field=f"zeros_poles_gain.zeros{ch}",
-                )
-            zr, zp = _real_and_pairs(z, f"zeros_poles_gain.zeros{ch}", ch, conjugate_rtol)
-            pr, pp = _real_and_pairs(pl, f"zeros_poles_gain.poles{ch}", ch, conjugate_rtol)
-            if k == 0.0:
+            factors = _channel_factors(zeros[i][j], poles[i][j], gain[i][j], f"[{i}][{j}]",
+                                       conjugate_rtol)
+            if factors is None:
                 continue  # vanishing channel: nothing to realize
-            a_s, b_s, c_s, d_s = _siso_cascade(zr, zp, pr, pp, k)
+            a_s, b_s, c_s, d_s = _siso_cascade(*factors)
             d[i, j] = d_s
             if a_s.shape[0]:
-                a_blocks.append(a_s)
-                b_cols.append((j, b_s[:, 0]))
-                c_rows.append((i, c_s[0, :]))
-    n = sum(blk.shape[0] for blk in a_blocks)
-    a = _block_diagonal(a_blocks, n, n)
-    b = np.zeros((n, m))
-    c = np.zeros((p, n))
-    offset = 0
-    for blk, (j, bcol), (i, crow) in zip(a_blocks, b_cols, c_rows):
-        size = blk.shape[0]
-        b[offset:offset + size, j] = bcol
-        c[i, offset:offset + size] = crow
-        offset += size
+                cascades.append((i, j, (a_s, b_s, c_s, d_s)))
+    a, b, c = _stacked_channels(cascades, p, m)
     a, b, c = _minimal_part(a, b, c, rank_rtol=rank_rtol)
-    from audit.core.stored_evaluation import StoredZerosPolesGain
-
-    stored = StoredZerosPolesGain(
-        zeros=tuple(tuple(_complex_list(zeros[i][j], "zeros") for j in range(m)) for i in range(p)),
-        poles_=tuple(tuple(_complex_list(poles[i][j], "poles") for j in range(m)) for i in range(p)),
-        gain=np.array([[float(gain[i][j]) for j in range(m)] for i in range(p)]),
-        sample_period=period,
-    )
+    stored = _stored_factors(zeros, poles, gain, p, m, period)
     return Realization.from_arrays(a, b, c, d, period).with_stored(stored)
 
 
