@@ -55,7 +55,7 @@ _EXPORTS: dict[str, str] = {
     "recognise_form": "audit.forms.catalogue",
     "check_claimed_form": "audit.forms.catalogue",
     "discretize": "audit.dynamics.discretization",
-    "check_discretization_claim": "audit.dynamics.discretization",
+    "check_discretization_claim": "audit.dynamics.discretization_checks",
     "step_response": "audit.dynamics.time_responses",
     "impulse_response": "audit.dynamics.time_responses",
 }

@@ -1666,7 +1666,7 @@ def compare_discretized(
     The continuous one is discretized at the discrete one's period with ``method``
     (:func:`audit.dynamics.discretization.discretize`) and the two discrete models are audited
     with :func:`compare_pair`. The claim check of
-    :func:`audit.dynamics.discretization.check_discretization_claim` is added as evidence; when
+    :func:`audit.dynamics.discretization_checks.check_discretization_claim` is added as evidence; when
     the claim fails it names the method that does match, if any.
 
     Raises
@@ -1676,7 +1676,8 @@ def compare_discretized(
     InvalidModelError
         If the method is unknown or does not apply (matched pole-zero on MIMO models).
     """
-    from audit.dynamics.discretization import check_discretization_claim, discretize
+    from audit.dynamics.discretization import discretize
+    from audit.dynamics.discretization_checks import check_discretization_claim
     from audit.errors import IncompatibleModelsError
 
     opts = options or Options()
@@ -1741,9 +1742,9 @@ def compare_sample_periods(r1: Realization, r2: Realization, *, options: Options
     They cannot be the same discrete-time system, so the verdict is ``different``; the
     evidence says whether they agree once one period is re-read (the same continuous
     dynamics sampled at the other period, or a mislabelled period), using
-    :func:`audit.dynamics.discretization.detect_sample_period_mismatch`.
+    :func:`audit.dynamics.discretization_checks.detect_sample_period_mismatch`.
     """
-    from audit.dynamics.discretization import detect_sample_period_mismatch
+    from audit.dynamics.discretization_checks import detect_sample_period_mismatch
 
     opts = options or Options()
     start = time.perf_counter()
