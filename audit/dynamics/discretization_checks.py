@@ -248,6 +248,36 @@ def check_discretization_claim(
     NumericalTroubleError
         The claimed discretization cannot be computed.
     """
+    continuous, discrete = _checked_claim_models(continuous, discrete)
+    rtol = _check_tolerance(rtol, "rtol")
+    prtol = math.sqrt(rtol) if pole_rtol is None else _check_tolerance(pole_rtol, "pole_rtol")
+    period = float(discrete.sample_period)  # type: ignore[arg-type]
+    cand = discretize(continuous, period, method=method, prewarp_frequency=prewarp_frequency)
+    omegas = _unit_circle_grid(continuous, discrete, n_frequencies)
+    rel, w_worst, pole_diff, ok = _compare_discrete(cand, discrete, omegas, rtol, prtol)
+    label = method if prewarp_frequency is None else f"{method} (prewarp {prewarp_frequency:g} rad/s)"
+    if ok:
+        return DiscretizationClaimCheck(
+            method, prewarp_frequency, period, rtol, prtol, rel, w_worst, pole_diff,
+            omegas.size, "holds", (), None,
+            f"the discrete model is the {label} discretization within rtol={rtol:g} "
+            f"(relative peak difference {rel:.3g})",
+        )
+    alternatives, best = _alternative_methods(continuous, discrete, method, prewarp_frequency,
+                                              period, omegas, rtol, prtol)
+    why = f"relative peak difference {rel:.3g} > rtol={rtol:g}" if rel > rtol else (
+        f"poles differ by {pole_diff:.3g} > pole_rtol={prtol:g}"
+    )
+    return DiscretizationClaimCheck(
+        method, prewarp_frequency, period, rtol, prtol, rel, w_worst, pole_diff,
+        omegas.size, "fails", tuple(alternatives), None if best is None else best.method,
+        _failed_claim_message(label, why, best),
+    )
+
+
+def _checked_claim_models(continuous: Any, discrete: Any) -> tuple[Realization, Realization]:
+    """Step 1 of a claim check: a continuous and a discrete model with the same inputs
+    and outputs."""
     continuous = _require_realization(continuous, "continuous")
     discrete = _require_realization(discrete, "discrete")
     if continuous.is_discrete:
@@ -267,20 +297,16 @@ def check_discretization_claim(
             f"output(s) but the continuous model has {continuous.n_inputs} and "
             f"{continuous.n_outputs}"
         )
-    rtol = _check_tolerance(rtol, "rtol")
-    prtol = math.sqrt(rtol) if pole_rtol is None else _check_tolerance(pole_rtol, "pole_rtol")
-    period = float(discrete.sample_period)  # type: ignore[arg-type]
-    cand = discretize(continuous, period, method=method, prewarp_frequency=prewarp_frequency)
-    omegas = _unit_circle_grid(continuous, discrete, n_frequencies)
-    rel, w_worst, pole_diff, ok = _compare_discrete(cand, discrete, omegas, rtol, prtol)
-    label = method if prewarp_frequency is None else f"{method} (prewarp {prewarp_frequency:g} rad/s)"
-    if ok:
-        return DiscretizationClaimCheck(
-            method, prewarp_frequency, period, rtol, prtol, rel, w_worst, pole_diff,
-            omegas.size, "holds", (), None,
-            f"the discrete model is the {label} discretization within rtol={rtol:g} "
-            f"(relative peak difference {rel:.3g})",
-        )
+    return continuous, discrete
+
+
+def _alternative_methods(
+    continuous: Realization, discrete: Realization, method: str, prewarp_frequency: float | None,
+    period: float, omegas: FloatArray, rtol: float, prtol: float,
+) -> tuple[list[MethodMatch], MethodMatch | None]:
+    """Step 3, when the claim fails: every other method (and bilinear without the claimed
+    prewarp), then -- when none matches -- the bilinear map with a prewarp found by search;
+    returns all tried and the best that matches (None when none does)."""
     alternatives: list[MethodMatch] = []
     tries: list[tuple[str, float | None]] = [(m, None) for m in METHODS if m != method]
     if method == "bilinear" and prewarp_frequency is not None:
@@ -300,28 +326,24 @@ def check_discretization_claim(
         best = _matching_prewarp(continuous, discrete, bilinear, period, omegas, rtol, prtol)
         if best is not None:
             alternatives.insert(0, best)
-    why = f"relative peak difference {rel:.3g} > rtol={rtol:g}" if rel > rtol else (
-        f"poles differ by {pole_diff:.3g} > pole_rtol={prtol:g}"
-    )
+    return alternatives, best
+
+
+def _failed_claim_message(label: str, why: str, best: MethodMatch | None) -> str:
+    """Step 4: one sentence -- which method (or prewarp) the matrices match instead, if any."""
     if best is not None and best.prewarp_frequency is not None:
-        message = (
+        return (
             f"the matrices match the {best.method} discretization with prewarp frequency "
             f"{best.prewarp_frequency:.6g} rad/s, not {label} ({why}; with that prewarp the "
             f"relative peak difference is {best.relative_peak_difference:.3g})"
         )
-    elif best is not None:
-        message = (
+    if best is not None:
+        return (
             f"the matrices look like a {best.method} discretization, not {label} ({why}; "
             f"{best.method} matches with relative peak difference "
             f"{best.relative_peak_difference:.3g})"
         )
-    else:
-        message = f"the discrete model is not the {label} discretization ({why}); no other method matches either"
-    return DiscretizationClaimCheck(
-        method, prewarp_frequency, period, rtol, prtol, rel, w_worst, pole_diff,
-        omegas.size, "fails", tuple(alternatives), None if best is None else best.method,
-        message,
-    )
+    return f"the discrete model is not the {label} discretization ({why}); no other method matches either"
 
 
 def _matching_prewarp(continuous: Realization, discrete: Realization, method: str, period: float,
@@ -473,18 +495,7 @@ def detect_sample_period_mismatch(
     IncompatibleModelsError
         Input or output counts differ.
     """
-    d1 = _require_realization(d1, "d1")
-    d2 = _require_realization(d2, "d2")
-    for name, d in (("d1", d1), ("d2", d2)):
-        if not d.is_discrete:
-            raise InvalidModelError(
-                f"{name}: is continuous-time but a discrete-time model was expected", field=name
-            )
-    if (d1.n_inputs, d1.n_outputs) != (d2.n_inputs, d2.n_outputs):
-        raise IncompatibleModelsError(
-            f"d2 has {d2.n_inputs} input(s) and {d2.n_outputs} output(s) but d1 has "
-            f"{d1.n_inputs} and {d1.n_outputs}"
-        )
+    d1, d2 = _checked_discrete_pair(d1, d2)
     rtol = _check_tolerance(rtol, "rtol")
     prtol = math.sqrt(rtol) if pole_rtol is None else _check_tolerance(pole_rtol, "pole_rtol")
     t1 = float(d1.sample_period)  # type: ignore[arg-type]
@@ -493,40 +504,25 @@ def detect_sample_period_mismatch(
 
     def result(outcome: str, note: str, ratio: float | None = None, res: float | None = None,
                resp: float | None = None) -> SamplePeriodCheck:
-        simple = None
-        if ratio is not None:
-            frac = Fraction(ratio).limit_denominator(16)
-            if abs(float(frac) - ratio) <= rtol * ratio:
-                simple = str(frac)
-        return SamplePeriodCheck(
-            ratio if outcome in ("period_mismatch", "consistent") else None, simple
-            if outcome in ("period_mismatch", "consistent") else None, labelled,
-            ratio * t1 if ratio is not None and outcome in ("period_mismatch", "consistent") else None,
-            res, resp, rtol, outcome, note,  # type: ignore[arg-type]
-        )
+        return _period_check(outcome, note, labelled, t1, rtol, ratio, res, resp)
 
     if d1.order != d2.order:
         return result("undetermined", f"orders differ ({d1.order} vs {d2.order}); compare minimal realizations first")
     if d1.order == 0:
         return result("undetermined", "static gains have no dynamics, so no period can be read from them")
     z1, z2 = d1.poles(), d2.poles()
-    for z in (z1, z2):
-        on_neg_axis = (np.abs(z.imag) <= 1e-12 * np.maximum(1.0, np.abs(z))) & (z.real <= 0.0)
-        if np.any(np.abs(z) <= 1e-12) or np.any(on_neg_axis):
-            return result(
-                "undetermined",
-                "a pole lies at z = 0 or on the negative real axis: it has no real "
-                "continuous-time logarithm, so no period ratio can be read",
-            )
+    if _pole_without_real_logarithm(z1, z2):
+        return result(
+            "undetermined",
+            "a pole lies at z = 0 or on the negative real axis: it has no real "
+            "continuous-time logarithm, so no period ratio can be read",
+        )
     l1, l2 = np.log(z1), np.log(z2)
     s1, s2 = float(np.sum(np.abs(l1))), float(np.sum(np.abs(l2)))
     if s1 == 0.0 or s2 == 0.0:
         return result("undetermined", "all poles at z = 1 (pure integrators): no time scale to compare")
     ratio = s2 / s1
-    cost = np.abs(l2[:, None] - ratio * l1[None, :])
-    rows, cols = linear_sum_assignment(cost)
-    scale = max(float(np.max(np.abs(l1))) * ratio, float(np.max(np.abs(l2))))
-    res = float(np.max(cost[rows, cols])) / scale
+    res = _pole_map_residual(l1, l2, ratio)
     if res > prtol:
         return result(
             "unrelated",
@@ -534,15 +530,9 @@ def detect_sample_period_mismatch(
             None, res,
         )
     try:
-        c1 = _undo_zero_order_hold(d1, t1)
-        c2 = _undo_zero_order_hold(d2, ratio * t1)
+        resp = _recovered_response_difference(d1, d2, t1, ratio, n_frequencies)
     except NumericalTroubleError as exc:
         return result("undetermined", f"could not undo the zero-order hold: {exc}", ratio, res)
-    lam = np.abs(np.concatenate([c1.poles(), c2.poles()]))
-    lam = lam[lam > 0]
-    lo, hi = (0.01 * float(lam.min()), 100.0 * float(lam.max())) if lam.size else (0.1 / t1, 10.0 / t1)
-    omegas = np.unique(np.concatenate([np.logspace(math.log10(lo), math.log10(hi), n_frequencies), lam]))
-    resp, _, _, _ = _relative_peak(transfer_values(c1, 1j * omegas), transfer_values(c2, 1j * omegas))
     if resp > rtol:
         return result(
             "unrelated",
@@ -564,6 +554,75 @@ def detect_sample_period_mismatch(
         ratio, res, resp,
     )
 
+
+def _checked_discrete_pair(d1: Any, d2: Any) -> tuple[Realization, Realization]:
+    """Step 1 of the period check: two discrete-time models with the same inputs and outputs."""
+    d1 = _require_realization(d1, "d1")
+    d2 = _require_realization(d2, "d2")
+    for name, d in (("d1", d1), ("d2", d2)):
+        if not d.is_discrete:
+            raise InvalidModelError(
+                f"{name}: is continuous-time but a discrete-time model was expected", field=name
+            )
+    if (d1.n_inputs, d1.n_outputs) != (d2.n_inputs, d2.n_outputs):
+        raise IncompatibleModelsError(
+            f"d2 has {d2.n_inputs} input(s) and {d2.n_outputs} output(s) but d1 has "
+            f"{d1.n_inputs} and {d1.n_outputs}"
+        )
+    return d1, d2
+
+
+def _pole_without_real_logarithm(*pole_sets: ComplexArray) -> bool:
+    """Step 2: a pole at z = 0 or on the negative real axis (no real continuous-time
+    logarithm, so no period ratio can be read)."""
+    for z in pole_sets:
+        on_neg_axis = (np.abs(z.imag) <= 1e-12 * np.maximum(1.0, np.abs(z))) & (z.real <= 0.0)
+        if np.any(np.abs(z) <= 1e-12) or np.any(on_neg_axis):
+            return True
+    return False
+
+
+def _pole_map_residual(l1: ComplexArray, l2: ComplexArray, ratio: float) -> float:
+    """Step 3: ``max |log z2 - ratio log z1|`` over optimally paired poles, relative to the
+    largest ``|log z|``."""
+    cost = np.abs(l2[:, None] - ratio * l1[None, :])
+    rows, cols = linear_sum_assignment(cost)
+    scale = max(float(np.max(np.abs(l1))) * ratio, float(np.max(np.abs(l2))))
+    return float(np.max(cost[rows, cols])) / scale
+
+
+def _recovered_response_difference(d1: Realization, d2: Realization, t1: float, ratio: float,
+                                   n_frequencies: int) -> float:
+    """Step 4: relative peak difference of the continuous frequency responses after undoing
+    the zero-order hold of ``d1`` at ``T1`` and of ``d2`` at ``ratio * T1`` (a log grid
+    around the recovered poles, plus their magnitudes)."""
+    c1 = _undo_zero_order_hold(d1, t1)
+    c2 = _undo_zero_order_hold(d2, ratio * t1)
+    lam = np.abs(np.concatenate([c1.poles(), c2.poles()]))
+    lam = lam[lam > 0]
+    lo, hi = (0.01 * float(lam.min()), 100.0 * float(lam.max())) if lam.size else (0.1 / t1, 10.0 / t1)
+    omegas = np.unique(np.concatenate([np.logspace(math.log10(lo), math.log10(hi), n_frequencies), lam]))
+    resp, _, _, _ = _relative_peak(transfer_values(c1, 1j * omegas), transfer_values(c2, 1j * omegas))
+    return resp
+
+
+def _period_check(outcome: str, note: str, labelled: float, t1: float, rtol: float,
+                  ratio: float | None = None, res: float | None = None,
+                  resp: float | None = None) -> SamplePeriodCheck:
+    """The result record: the ratio (with its simple fraction, denominator <= 16, when it
+    is one within ``rtol``) and the implied period only for a consistent or mismatched
+    period."""
+    simple = None
+    if ratio is not None:
+        frac = Fraction(ratio).limit_denominator(16)
+        if abs(float(frac) - ratio) <= rtol * ratio:
+            simple = str(frac)
+    return SamplePeriodCheck(
+        ratio if outcome in ("period_mismatch", "consistent") else None, simple
+        if outcome in ("period_mismatch", "consistent") else None, labelled,
+        ratio * t1 if ratio is not None and outcome in ("period_mismatch", "consistent") else None,
+        res, resp, rtol, outcome, note,  # type: ignore[arg-type]
+    )
 
 __all__ = [
     "DiscretizationClaimCheck",
