@@ -11,6 +11,7 @@ with the matrix logarithm).
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 from fractions import Fraction
@@ -502,22 +503,11 @@ def detect_sample_period_mismatch(
     t2 = float(d2.sample_period)  # type: ignore[arg-type]
     labelled = t2 / t1
 
-    def result(outcome: str, note: str, ratio: float | None = None, res: float | None = None,
-               resp: float | None = None) -> SamplePeriodCheck:
-        return _period_check(outcome, note, labelled, t1, rtol, ratio, res, resp)
-
-    if d1.order != d2.order:
-        return result("undetermined", f"orders differ ({d1.order} vs {d2.order}); compare minimal realizations first")
-    if d1.order == 0:
-        return result("undetermined", "static gains have no dynamics, so no period can be read from them")
-    z1, z2 = d1.poles(), d2.poles()
-    if _pole_without_real_logarithm(z1, z2):
-        return result(
-            "undetermined",
-            "a pole lies at z = 0 or on the negative real axis: it has no real "
-            "continuous-time logarithm, so no period ratio can be read",
-        )
-    l1, l2 = np.log(z1), np.log(z2)
+    result = functools.partial(_period_check, labelled, t1, rtol)
+    obstacle = _why_no_period_can_be_read(d1, d2)
+    if obstacle is not None:
+        return result("undetermined", obstacle)
+    l1, l2 = np.log(d1.poles()), np.log(d2.poles())
     s1, s2 = float(np.sum(np.abs(l1))), float(np.sum(np.abs(l2)))
     if s1 == 0.0 or s2 == 0.0:
         return result("undetermined", "all poles at z = 1 (pure integrators): no time scale to compare")
@@ -572,14 +562,20 @@ def _checked_discrete_pair(d1: Any, d2: Any) -> tuple[Realization, Realization]:
     return d1, d2
 
 
-def _pole_without_real_logarithm(*pole_sets: ComplexArray) -> bool:
-    """Step 2: a pole at z = 0 or on the negative real axis (no real continuous-time
-    logarithm, so no period ratio can be read)."""
-    for z in pole_sets:
+def _why_no_period_can_be_read(d1: Realization, d2: Realization) -> str | None:
+    """Step 2: why the two models' poles cannot give a period ratio (orders differ, no
+    dynamics, or a pole at z = 0 or on the negative real axis, which has no real
+    continuous-time logarithm); None when they can."""
+    if d1.order != d2.order:
+        return f"orders differ ({d1.order} vs {d2.order}); compare minimal realizations first"
+    if d1.order == 0:
+        return "static gains have no dynamics, so no period can be read from them"
+    for z in (d1.poles(), d2.poles()):
         on_neg_axis = (np.abs(z.imag) <= 1e-12 * np.maximum(1.0, np.abs(z))) & (z.real <= 0.0)
         if np.any(np.abs(z) <= 1e-12) or np.any(on_neg_axis):
-            return True
-    return False
+            return ("a pole lies at z = 0 or on the negative real axis: it has no real "
+                    "continuous-time logarithm, so no period ratio can be read")
+    return None
 
 
 def _pole_map_residual(l1: ComplexArray, l2: ComplexArray, ratio: float) -> float:
@@ -606,7 +602,7 @@ def _recovered_response_difference(d1: Realization, d2: Realization, t1: float, 
     return resp
 
 
-def _period_check(outcome: str, note: str, labelled: float, t1: float, rtol: float,
+def _period_check(labelled: float, t1: float, rtol: float, outcome: str, note: str,
                   ratio: float | None = None, res: float | None = None,
                   resp: float | None = None) -> SamplePeriodCheck:
     """The result record: the ratio (with its simple fraction, denominator <= 16, when it
