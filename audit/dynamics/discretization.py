@@ -92,6 +92,18 @@ def _finite_or_raise(arr: NDArray[Any], what: str) -> None:
         )
 
 
+def _checked_exponential(mat: FloatArray, failure: str, what: str) -> FloatArray:
+    """``e^mat``; a scipy failure becomes ``NumericalTroubleError(failure + ": " + reason)``
+    and an overflow the :func:`_finite_or_raise` error naming ``what``."""
+    try:
+        with np.errstate(over="ignore", invalid="ignore"):  # overflow is checked below
+            e = scipy.linalg.expm(mat)
+    except (ValueError, np.linalg.LinAlgError, OverflowError) as exc:  # pragma: no cover
+        raise NumericalTroubleError(f"{failure}: {exc}") from exc
+    _finite_or_raise(e, what)
+    return e
+
+
 def zero_order_hold_pair(a: FloatArray, b: FloatArray, step: float) -> tuple[FloatArray, FloatArray]:
     """Transition matrices of a zero-order hold over one step.
 
@@ -125,12 +137,8 @@ def zero_order_hold_pair(a: FloatArray, b: FloatArray, step: float) -> tuple[Flo
     aug = np.zeros((n + m, n + m))
     aug[:n, :n] = a * step
     aug[:n, n:] = b * step
-    try:
-        with np.errstate(over="ignore", invalid="ignore"):  # overflow is checked below
-            e = scipy.linalg.expm(aug)
-    except (ValueError, np.linalg.LinAlgError, OverflowError) as exc:  # pragma: no cover
-        raise NumericalTroubleError(f"matrix exponential of [[A, B], [0, 0]]*h failed: {exc}") from exc
-    _finite_or_raise(e, "matrix exponential of [[A, B], [0, 0]]*h")
+    e = _checked_exponential(aug, "matrix exponential of [[A, B], [0, 0]]*h failed",
+                             "matrix exponential of [[A, B], [0, 0]]*h")
     return e[:n, :n].copy(), e[:n, n:].copy()
 
 
@@ -211,12 +219,8 @@ def _triangle_hold(r: Realization, period: float) -> tuple[FloatArray, ...]:
     big[:n, :n] = r.a * period
     big[:n, n:n + m] = r.b * period
     big[n:n + m, n + m:] = np.eye(m)
-    try:
-        with np.errstate(over="ignore", invalid="ignore"):  # overflow is checked below
-            e = scipy.linalg.expm(big)
-    except (ValueError, np.linalg.LinAlgError, OverflowError) as exc:  # pragma: no cover
-        raise NumericalTroubleError(f"first-order hold: matrix exponential failed: {exc}") from exc
-    _finite_or_raise(e, "first-order hold matrix exponential")
+    e = _checked_exponential(big, "first-order hold: matrix exponential failed",
+                             "first-order hold matrix exponential")
     phi = e[:n, :n]
     gamma1 = e[:n, n:n + m]      # int_0^T e^{A(T-t)} B dt
     gamma2 = e[:n, n + m:]       # int_0^T e^{A(T-t)} B (t/T) dt
@@ -227,12 +231,8 @@ def _triangle_hold(r: Realization, period: float) -> tuple[FloatArray, ...]:
 
 
 def _impulse_invariant(r: Realization, period: float) -> tuple[FloatArray, ...]:
-    try:
-        with np.errstate(over="ignore", invalid="ignore"):  # overflow is checked below
-            phi = scipy.linalg.expm(r.a * period)
-    except (ValueError, np.linalg.LinAlgError, OverflowError) as exc:  # pragma: no cover
-        raise NumericalTroubleError(f"impulse-invariant: matrix exponential failed: {exc}") from exc
-    _finite_or_raise(phi, "impulse-invariant matrix exponential")
+    phi = _checked_exponential(r.a * period, "impulse-invariant: matrix exponential failed",
+                               "impulse-invariant matrix exponential")
     bd = period * (phi @ r.b)
     dd = r.d + period * (r.c @ r.b)
     return phi, bd, r.c.copy(), dd

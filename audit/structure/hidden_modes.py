@@ -10,7 +10,7 @@ from typing import Any
 from audit.errors import InvalidModelError
 from audit.core.realization import Realization
 from audit.structure.kalman import kalman_decomposition
-from audit.structure.shared import HiddenKind, Stability
+from audit.structure.shared import HiddenKind, Stability, _UnstableWhenNotStable
 from audit.structure.staircase import RankDecision
 
 #: default relative band around the stability boundary for hidden modes.
@@ -18,7 +18,7 @@ DEFAULT_MARGINAL_TOL = 1e-6
 
 
 @dataclass(frozen=True)
-class HiddenMode:
+class HiddenMode(_UnstableWhenNotStable):
     """One hidden (uncontrollable and/or unobservable) mode.
 
     Attributes
@@ -32,11 +32,6 @@ class HiddenMode:
     value: complex
     kind: HiddenKind
     stability: Stability
-
-    @property
-    def is_unstable(self) -> bool:
-        """True for unstable *and* marginal modes (a hidden integrator is a finding)."""
-        return self.stability != "stable"
 
     def as_dict(self) -> dict[str, Any]:
         return {

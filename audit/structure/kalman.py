@@ -19,8 +19,7 @@ from audit.core.realization import FloatArray, Realization
 from audit.structure.scaling import _prepare
 from audit.structure.shared import ComplexArray, _check_realization, _complex_list, _eigenvalues
 from audit.structure.staircase import (
-    DOUBT_CEILING, RankDecision, _controllable_staircase, _leading, _observable_staircase,
-    _relative_tolerance, _svd, _system_scale,
+    DOUBT_CEILING, RankDecision, _leading, _relative_tolerance, _staircase, _svd, _system_scale,
 )
 
 @dataclass(frozen=True)
@@ -127,18 +126,19 @@ def _kalman_parts(r: Realization, rtol: float) -> dict[str, Any]:
     c_scale = float(np.linalg.norm(r.c))
     rel_scale = _system_scale(r)
 
-    cs = _controllable_staircase(
-        r, rtol=rtol, a_scale=a_scale, b_scale=b_scale, rel_scale=rel_scale
+    cs = _staircase(
+        r, "controllability", rtol=rtol, a_scale=a_scale, first_scale=b_scale, rel_scale=rel_scale
     )
     nc = cs.order
-    os_c = _observable_staircase(
-        _leading(cs.realization, nc), rtol=rtol, a_scale=a_scale, c_scale=c_scale,
+    os_c = _staircase(
+        _leading(cs.realization, nc), "observability", rtol=rtol, a_scale=a_scale,
+        first_scale=c_scale,
         rel_scale=rel_scale,
     )
     n_co = os_c.order
     n_cu = nc - n_co
-    os_full = _observable_staircase(
-        r, rtol=rtol, a_scale=a_scale, c_scale=c_scale, rel_scale=rel_scale
+    os_full = _staircase(
+        r, "observability", rtol=rtol, a_scale=a_scale, first_scale=c_scale, rel_scale=rel_scale
     )
     n_unobs = n - os_full.order
 

@@ -16,10 +16,12 @@ from audit.structure.coupling_levels import (
 from audit.structure.hidden_modes import DEFAULT_MARGINAL_TOL, mode_stability
 from audit.structure.minimal import MinimalRealization, minimal_realization
 from audit.structure.scaling import _scaled
-from audit.structure.shared import HiddenKind, Stability, _check_realization, _json_float
+from audit.structure.shared import (
+    HiddenKind, Stability, _UnstableWhenNotStable, _check_realization, _json_float,
+)
 
 @dataclass(frozen=True)
-class ModeCoupling:
+class ModeCoupling(_UnstableWhenNotStable):
     """How strongly one mode (an eigenvalue of A) is coupled to the inputs and outputs.
 
     Attributes
@@ -54,11 +56,6 @@ class ModeCoupling:
     joint: float
     method: CouplingMethod
     eigenvalue_condition: float
-
-    @property
-    def is_unstable(self) -> bool:
-        """True for unstable *and* marginal modes."""
-        return self.stability != "stable"
 
     def as_dict(self) -> dict[str, Any]:
         return {

@@ -62,3 +62,15 @@ def _check_realization(r: object) -> Realization:
             field="r",
         )
     return r
+
+
+class _UnstableWhenNotStable:
+    """Base of the per-mode records (hidden modes, mode couplings): one rule for
+    ``is_unstable`` from their ``stability`` field."""
+
+    stability: Stability
+
+    @property
+    def is_unstable(self) -> bool:
+        """True for unstable *and* marginal modes (a hidden integrator is a finding)."""
+        return self.stability != "stable"

@@ -374,17 +374,29 @@ def _system_scale(r: Realization) -> float:
     )
 
 
-def _controllable_staircase(
-    r: Realization, *, rtol: float, a_scale: float, b_scale: float, rel_scale: float
+def _staircase(
+    r: Realization, kind: StaircaseKind, *, rtol: float, a_scale: float, first_scale: float,
+    rel_scale: float,
 ) -> StaircaseResult:
-    q, a, b, order, blocks, decisions, discarded = _controllable_reduction(
-        np.asarray(r.a), np.asarray(r.b), rtol=rtol, a_scale=a_scale, b_scale=b_scale,
-        kind="controllability",
-    )
-    c = np.asarray(r.c) @ q
-    transformed = r.with_matrices(a, b, c)
+    """The staircase of ``kind`` with the given scales (``first_scale``: ``||B||`` for the
+    controllability staircase, ``||C||`` for the observability one)."""
+    if kind == "controllability":
+        q, a, b, order, blocks, decisions, discarded = _controllable_reduction(
+            np.asarray(r.a), np.asarray(r.b), rtol=rtol, a_scale=a_scale, b_scale=first_scale,
+            kind=kind,
+        )
+        c = np.asarray(r.c) @ q
+        transformed = r.with_matrices(a, b, c)
+    else:
+        # Dual: the controllability staircase of (A^T, C^T), transposed back.
+        q, at, ct, order, blocks, decisions, discarded = _controllable_reduction(
+            np.asarray(r.a).T, np.asarray(r.c).T, rtol=rtol, a_scale=a_scale,
+            b_scale=first_scale, kind=kind,
+        )
+        b = q.T @ np.asarray(r.b)
+        transformed = r.with_matrices(at.T, b, ct.T)
     return StaircaseResult(
-        kind="controllability",
+        kind=kind,
         realization=transformed,
         transformation=q,
         order=order,
@@ -395,25 +407,18 @@ def _controllable_staircase(
     )
 
 
-def _observable_staircase(
-    r: Realization, *, rtol: float, a_scale: float, c_scale: float, rel_scale: float
-) -> StaircaseResult:
-    # Dual: the controllability staircase of (A^T, C^T), transposed back.
-    q, at, ct, order, blocks, decisions, discarded = _controllable_reduction(
-        np.asarray(r.a).T, np.asarray(r.c).T, rtol=rtol, a_scale=a_scale, b_scale=c_scale,
-        kind="observability",
-    )
-    b = q.T @ np.asarray(r.b)
-    transformed = r.with_matrices(at.T, b, ct.T)
-    return StaircaseResult(
-        kind="observability",
-        realization=transformed,
-        transformation=q,
-        order=order,
-        block_sizes=blocks,
-        decisions=decisions,
-        tolerance=rtol,
-        discarded_norm=discarded / rel_scale,
+def _staircase_as_given(r: Realization, tol: float | None, kind: StaircaseKind) -> StaircaseResult:
+    """The staircase of ``kind`` of ``r`` with thresholds relative to its own norms."""
+    r = _check_realization(r)
+    rtol = _relative_tolerance(tol, r.order)
+    first = r.b if kind == "controllability" else r.c
+    return _staircase(
+        r,
+        kind,
+        rtol=rtol,
+        a_scale=float(np.linalg.norm(r.a)),
+        first_scale=float(np.linalg.norm(first)),
+        rel_scale=_system_scale(r),
     )
 
 
@@ -450,15 +455,7 @@ def controllable_staircase(r: Realization, *, tol: float | None = None) -> Stair
     >>> res.order, [round(float(z.real), 12) for z in res.hidden_modes]
     (1, [0.5])
     """
-    r = _check_realization(r)
-    rtol = _relative_tolerance(tol, r.order)
-    return _controllable_staircase(
-        r,
-        rtol=rtol,
-        a_scale=float(np.linalg.norm(r.a)),
-        b_scale=float(np.linalg.norm(r.b)),
-        rel_scale=_system_scale(r),
-    )
+    return _staircase_as_given(r, tol, "controllability")
 
 
 def observable_staircase(r: Realization, *, tol: float | None = None) -> StaircaseResult:
@@ -494,15 +491,7 @@ def observable_staircase(r: Realization, *, tol: float | None = None) -> Stairca
     >>> res.order, [round(float(z.real), 12) for z in res.hidden_modes]
     (1, [-3.0])
     """
-    r = _check_realization(r)
-    rtol = _relative_tolerance(tol, r.order)
-    return _observable_staircase(
-        r,
-        rtol=rtol,
-        a_scale=float(np.linalg.norm(r.a)),
-        c_scale=float(np.linalg.norm(r.c)),
-        rel_scale=_system_scale(r),
-    )
+    return _staircase_as_given(r, tol, "observability")
 
 
 def _leading(r: Realization, k: int) -> Realization:
@@ -515,15 +504,17 @@ def _minimal_parts(
 ) -> tuple[Realization, ComplexArray, ComplexArray, tuple[RankDecision, ...], float]:
     a_scale = float(np.linalg.norm(r.a))
     rel_scale = _system_scale(r)
-    cs = _controllable_staircase(
-        r, rtol=rtol, a_scale=a_scale, b_scale=float(np.linalg.norm(r.b)), rel_scale=rel_scale
+    cs = _staircase(
+        r, "controllability", rtol=rtol, a_scale=a_scale,
+        first_scale=float(np.linalg.norm(r.b)), rel_scale=rel_scale,
     )
     controllable = _leading(cs.realization, cs.order)
-    os_ = _observable_staircase(
+    os_ = _staircase(
         controllable,
+        "observability",
         rtol=rtol,
         a_scale=a_scale,
-        c_scale=float(np.linalg.norm(r.c)),
+        first_scale=float(np.linalg.norm(r.c)),
         rel_scale=rel_scale,
     )
     return (
