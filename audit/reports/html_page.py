@@ -33,7 +33,7 @@ same without the enlarged view.
 
 No numerical method of its own is implemented here: responses, error estimates, zeros,
 step responses and the frequency grid come from :mod:`audit.evidence.frequency`,
-:mod:`audit.verdict.compare`, :mod:`audit.structure.minimal` and :mod:`audit.dynamics.time_responses`. Every string
+:mod:`audit.verdict.compare`, :mod:`audit.structure.zeros` and :mod:`audit.dynamics.time_responses`. Every string
 that came from a user (model names, sources, claims) is HTML-escaped. Figures are built
 with the object-oriented :class:`matplotlib.figure.Figure` API, never ``pyplot``, so that
 rendering is safe from several threads of the service at once.

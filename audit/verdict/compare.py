@@ -1119,7 +1119,7 @@ TIME_DOMAIN_INITIAL_MAX_ORDER = 20
 
 def _time_domain(sh: _Shared, opts: Options, sim: Evidence) -> Evidence:
     """Step and impulse responses (and initial-condition responses through T)."""
-    from audit.dynamics.time_responses import compare_time_responses
+    from audit.dynamics.response_comparison import compare_time_responses
 
     if max(sh.r1.order, sh.r2.order) > TIME_DOMAIN_MAX_ORDER:
         return skipped("time_responses", "Time responses",
