@@ -314,10 +314,8 @@ def transfer_function_from_realization(
 
     Raises
     ------
-    InvalidModelError
-        ``r`` is not a :class:`Realization`.
-    NumericalTroubleError
-        A non-finite result.
+    InvalidModelError, NumericalTroubleError
+        As :func:`zeros_poles_gain_from_realization`, whose data this expands.
 
     Examples
     --------

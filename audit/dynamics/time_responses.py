@@ -269,10 +269,8 @@ def step_response(r: Realization, times: ArrayLike) -> TimeResponse:
 
     Parameters
     ----------
-    r : Realization
-        ``A : (n, n)``, ``B : (n, m)``, ``C : (p, n)``, ``D : (p, m)``.
-    times : (k,) array_like
-        Seconds, strictly increasing, ``>= 0``.
+    r, times
+        As :func:`impulse_response`.
 
     Returns
     -------

@@ -222,10 +222,8 @@ def kalman_decomposition(
 
     Raises
     ------
-    InvalidModelError
-        If ``r`` is not a Realization or ``tol`` is not in (0, 1).
-    NumericalTroubleError
-        If a singular value or eigenvalue decomposition fails.
+    InvalidModelError, NumericalTroubleError
+        As :func:`audit.structure.minimal.minimal_realization`.
 
     Examples
     --------

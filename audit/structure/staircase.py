@@ -478,10 +478,8 @@ def observable_staircase(r: Realization, *, tol: float | None = None) -> Stairca
 
     Raises
     ------
-    InvalidModelError
-        If ``r`` is not a Realization or ``tol`` is not in (0, 1).
-    NumericalTroubleError
-        If a singular value decomposition fails.
+    InvalidModelError, NumericalTroubleError
+        As :func:`controllable_staircase`.
 
     Examples
     --------

@@ -135,7 +135,7 @@ def transmission_zeros(
     Returns
     -------
     (k,) complex ndarray
-        Sorted by real part, then imaginary part.
+        Sorted as by :func:`invariant_zeros`.
 
     Raises
     ------
