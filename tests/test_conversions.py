@@ -416,7 +416,7 @@ def test_own_zero_fallback_against_slycot_ab08nd(relative_degree: int, seed: int
     base = realization_from_zeros_poles_gain([[list(zeros)]], [[list(poles)]], [[1.5]])
     r = similarity_transformed(base, rng.standard_normal((6, 6)) + 3.0 * np.eye(6))
     ours = from_realization._siso_zeros(r.a, r.b[:, 0], r.c[0, :], float(r.d[0, 0]),
-                                   rank_rtol=DEFAULT_RANK_RTOL)
+                                        rank_rtol=DEFAULT_RANK_RTOL)
     # independent: slycot ab08nd reduced pencil, scipy.linalg.eigvals
     nu, *_, af, bf = slycot.ab08nd(6, 1, 1, r.a, r.b, r.c, r.d)
     ref = scipy.linalg.eigvals(af[:nu, :nu], bf[:nu, :nu])
