@@ -194,19 +194,19 @@ def build_mimo_changed(rng, n, delta, cond, io):
 
 # ------------------------------------------- transfer-function and zero-pole-gain documents
 # Pairs of model DOCUMENTS (issue 10): each transfer function / zero-pole-gain model is
-# realized by audit.core.conversions (as `lti-audit` loads it) and carries its stored data;
+# realized by audit.core.from_transfer_function (as `lti-audit` loads it) and carries its stored data;
 # labels are verified on the stored coefficients and factors (benchmarks/_cases.py).
 MODELS = Path(__file__).resolve().parent / "models"
 
 
 def _tf(num, den, period=None, name="transfer function"):  # type: ignore[no-untyped-def]
-    from audit.core.conversions import realization_from_transfer_function
+    from audit.core.from_transfer_function import realization_from_transfer_function
 
     return realization_from_transfer_function(num, den, period).with_name(name)
 
 
 def _factored(z, p, k, period=None, name="zero-pole-gain"):  # type: ignore[no-untyped-def]
-    from audit.core.conversions import realization_from_zeros_poles_gain
+    from audit.core.from_zeros_poles_gain import realization_from_zeros_poles_gain
 
     return realization_from_zeros_poles_gain(z, p, k, period).with_name(name)
 

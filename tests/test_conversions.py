@@ -1,4 +1,5 @@
-"""Tests of audit.core.conversions against outside references.
+"""Tests of the conversions (audit.core.from_transfer_function, from_zeros_poles_gain,
+from_realization) against outside references.
 
 Sources used (named beside each assertion):
 * SLICOT published examples TD04AD and TB04AD (repo SLICOT/SLICOT-Reference,
@@ -21,15 +22,16 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import linear_sum_assignment
 
-from audit.core import conversions
-from audit.core.conversions import (
+from audit.core import from_realization, from_transfer_function
+from audit.core.conversion_common import DEFAULT_RANK_RTOL
+from audit.core.from_realization import (
     TransferFunctionData,
     ZerosPolesGainData,
-    realization_from_transfer_function,
-    realization_from_zeros_poles_gain,
     transfer_function_from_realization,
     zeros_poles_gain_from_realization,
 )
+from audit.core.from_transfer_function import realization_from_transfer_function
+from audit.core.from_zeros_poles_gain import realization_from_zeros_poles_gain
 from audit.errors import InvalidModelError, NumericalTroubleError
 from audit.core.realization import Realization, similarity_transformed
 
@@ -413,8 +415,8 @@ def test_own_zero_fallback_against_slycot_ab08nd(relative_degree: int, seed: int
     zeros = rng.uniform(-4.0, 4.0, 6 - relative_degree)
     base = realization_from_zeros_poles_gain([[list(zeros)]], [[list(poles)]], [[1.5]])
     r = similarity_transformed(base, rng.standard_normal((6, 6)) + 3.0 * np.eye(6))
-    ours = conversions._siso_zeros(r.a, r.b[:, 0], r.c[0, :], float(r.d[0, 0]),
-                                   rank_rtol=conversions.DEFAULT_RANK_RTOL)
+    ours = from_realization._siso_zeros(r.a, r.b[:, 0], r.c[0, :], float(r.d[0, 0]),
+                                        rank_rtol=DEFAULT_RANK_RTOL)
     # independent: slycot ab08nd reduced pencil, scipy.linalg.eigvals
     nu, *_, af, bf = slycot.ab08nd(6, 1, 1, r.a, r.b, r.c, r.d)
     ref = scipy.linalg.eigvals(af[:nu, :nu], bf[:nu, :nu])
@@ -516,7 +518,7 @@ def test_slycot_failure_falls_back_to_own_construction(monkeypatch: pytest.Monke
 
     monkeypatch.setattr(slycot, "td04ad", broken)
     with pytest.raises(NumericalTroubleError, match="TD04AD"):
-        conversions._realize_with_slycot(
+        from_transfer_function._realize_with_slycot(
             [[(np.array([0.0, 1.0]), np.array([1.0, 1.0]))]], 1, 1, coefficient_rtol=1e-14
         )
     r = realization_from_transfer_function(TD04AD_NUM, TD04AD_DEN)

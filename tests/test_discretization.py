@@ -1,4 +1,4 @@
-"""Tests for audit.dynamics.discretization against outside references.
+"""Tests for audit.dynamics.discretization and discretization_checks against outside references.
 
 References used: scipy.signal.cont2discrete (its methods 'zoh', 'foh', 'bilinear', 'impulse'
 against our zero-order-hold, triangle-hold, bilinear, impulse-invariant),
@@ -19,13 +19,8 @@ import scipy.signal as sig
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from audit.dynamics.discretization import (
-    check_discretization_claim,
-    detect_sample_period_mismatch,
-    discretize,
-    transfer_values,
-    zero_order_hold_pair,
-)
+from audit.dynamics.discretization import discretize, transfer_values, zero_order_hold_pair
+from audit.dynamics.discretization_checks import check_discretization_claim, detect_sample_period_mismatch
 from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from audit.core.realization import Realization
 

@@ -17,12 +17,10 @@ import numpy as np
 import pytest
 
 from audit.core.realization import Realization
-from audit.structure.minimal import (
-    NEARLY_HIDDEN_LEVEL,
-    minimal_realization,
-    mode_couplings,
-    state_scaling,
-)
+from audit.structure.coupling_levels import NEARLY_HIDDEN_LEVEL
+from audit.structure.minimal import minimal_realization
+from audit.structure.mode_coupling import mode_couplings
+from audit.structure.scaling import state_scaling
 
 A = [[-1.2, 2.7, 0.0], [-2.7, -10.8, 0.0], [0.0, 0.0, 0.5]]
 B = [[-0.37], [-0.37], [0.2]]
@@ -424,7 +422,7 @@ def test_every_written_form_inspects_like_its_source(form: str, r: Realization) 
     """Hidden modes, stability and minimal order of every form equal its source's.
 
     Bounded, not exact: a change of coordinates T moves a mode's joint coupling by at most
-    a factor cond(T)^2 (audit.structure.minimal.ModeCoupling), and each model's own state scaling
+    a factor cond(T)^2 (audit.structure.mode_coupling.ModeCoupling), and each model's own state scaling
     D by cond(D)^2, so a mode whose joint coupling in the source lies within that factor
     (times 10) of a threshold may be classified on either side of it in the form; such
     modes are left out of the comparison. For a

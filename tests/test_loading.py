@@ -150,7 +150,7 @@ def test_every_format_gives_the_same_matrices(tmp_path: Path) -> None:
 
 
 def test_transfer_function_document_through_conversions() -> None:
-    pytest.importorskip("audit.core.conversions")
+    pytest.importorskip("audit.core.from_transfer_function")
     doc = parse_model_document(td04ad_transfer_function_document(), source="td04ad")
     r = realization_from_document(doc)
     assert r.name == "SLICOT TD04AD transfer matrix"
@@ -168,7 +168,7 @@ def test_transfer_function_document_through_conversions() -> None:
 
 
 def test_zeros_poles_gain_document_through_conversions() -> None:
-    pytest.importorskip("audit.core.conversions")
+    pytest.importorskip("audit.core.from_zeros_poles_gain")
     # supplier's valve actuator, two outputs: 4 (s + 10) / ((s + 4)^2 + 4.9^2) and
     # -2 / (s + 0.5); invented data
     doc = parse_model_document({
@@ -187,7 +187,7 @@ def test_zeros_poles_gain_document_through_conversions() -> None:
 
 
 def test_discrete_transfer_function_keeps_its_sample_period() -> None:
-    pytest.importorskip("audit.core.conversions")
+    pytest.importorskip("audit.core.from_transfer_function")
     doc = parse_model_document({
         "lti_model": 1, "name": "conveyor drive, discrete speed loop", "sample_period": 0.002,
         "transfer_function": {"numerator": [[[0.0, 0.0, 0.5]]],  # leading zeros allowed
@@ -477,12 +477,12 @@ def test_document_from_realization_rejects_bad_arguments() -> None:
 
 
 def test_failing_conversion_becomes_numerical_trouble(monkeypatch: pytest.MonkeyPatch) -> None:
-    conversions = pytest.importorskip("audit.core.conversions")
+    from_transfer_function = pytest.importorskip("audit.core.from_transfer_function")
 
     def broken(*args: Any, **kwargs: Any) -> Realization:
         raise np.linalg.LinAlgError("singular matrix")
 
-    monkeypatch.setattr(conversions, "realization_from_transfer_function", broken)
+    monkeypatch.setattr(from_transfer_function, "realization_from_transfer_function", broken)
     doc = parse_model_document(td04ad_transfer_function_document(), source="td04ad")
     with pytest.raises(NumericalTroubleError,
                        match="converting the transfer function to state space failed"):
@@ -490,8 +490,8 @@ def test_failing_conversion_becomes_numerical_trouble(monkeypatch: pytest.Monkey
 
 
 def test_conversion_with_wrong_size_is_caught(monkeypatch: pytest.MonkeyPatch) -> None:
-    conversions = pytest.importorskip("audit.core.conversions")
-    monkeypatch.setattr(conversions, "realization_from_transfer_function",
+    from_transfer_function = pytest.importorskip("audit.core.from_transfer_function")
+    monkeypatch.setattr(from_transfer_function, "realization_from_transfer_function",
                         lambda *a, **k: Realization.from_arrays([], [], [], [[1.0]]))
     doc = parse_model_document(td04ad_transfer_function_document(), source="td04ad")
     with pytest.raises(NumericalTroubleError, match="gave 1 output"):

@@ -21,12 +21,12 @@ import scipy.signal
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
-from audit.core.conversions import (
-    realization_from_transfer_function,
-    realization_from_zeros_poles_gain,
+from audit.core.from_realization import (
     transfer_function_from_realization,
     zeros_poles_gain_from_realization,
 )
+from audit.core.from_transfer_function import realization_from_transfer_function
+from audit.core.from_zeros_poles_gain import realization_from_zeros_poles_gain
 from audit.dynamics.discretization import discretize
 from audit.errors import InvalidModelError, NumericalTroubleError
 from audit.forms.catalogue import FORMS

@@ -14,8 +14,8 @@ import pytest
 
 from audit.cli import main
 from audit.commands.convert import FORM_NAMES
-from audit.core.conversions import realization_from_transfer_function
-from audit.dynamics.discretization import check_discretization_claim
+from audit.core.from_transfer_function import realization_from_transfer_function
+from audit.dynamics.discretization_checks import check_discretization_claim
 from audit.forms.catalogue import jordan_form
 from audit.core.realization import Realization
 from audit.reports.shapes import CAUTION, compare_report, render_compare_text

@@ -12,7 +12,8 @@ import pytest
 import slycot
 
 from audit.core.realization import Realization
-from audit.structure.minimal import controllable_staircase, minimal_realization
+from audit.structure.minimal import minimal_realization
+from audit.structure.staircase import controllable_staircase
 
 
 def _non_minimal(seed: int, n_min: int, n_hidden: int, io: tuple[int, int]) -> Realization:

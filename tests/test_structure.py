@@ -1,5 +1,5 @@
-"""Tests of audit.structure.minimal: staircases, minimal realization, Kalman decomposition,
-hidden modes and transmission zeros.
+"""Tests of audit.structure (staircase, scaling, minimal, kalman, hidden_modes, zeros):
+staircases, minimal realization, Kalman decomposition, hidden modes and transmission zeros.
 
 Every numeric assertion names its source. Outside references used here:
 * SLICOT TB01PD and AB08ND documentation examples (SLICOT/SLICOT-Reference,
@@ -23,26 +23,21 @@ import slycot
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from audit.structure import minimal as structure
+from audit.structure import zeros as structure_zeros
 from audit.errors import InvalidModelError, NumericalTroubleError
 from audit.core.realization import Realization, similarity_transformed
-from audit.structure.minimal import (
-    controllable_staircase,
-    hidden_modes,
-    invariant_zeros,
-    kalman_decomposition,
-    minimal_realization,
-    mode_stability,
-    observable_staircase,
-    state_scaling,
-    transmission_zeros,
-)
+from audit.structure.hidden_modes import hidden_modes, mode_stability
+from audit.structure.kalman import kalman_decomposition
+from audit.structure.minimal import minimal_realization
+from audit.structure.scaling import state_scaling
+from audit.structure.staircase import controllable_staircase, observable_staircase
+from audit.structure.zeros import invariant_zeros, transmission_zeros
 
 # ----------------------------------------------------------------- test helpers
 
 
 def transfer_at(r: Realization, s: complex) -> np.ndarray:
-    """C (sI - A)^-1 B + D by a direct numpy solve (independent of audit.structure.minimal)."""
+    """C (sI - A)^-1 B + D by a direct numpy solve (independent of audit.structure)."""
     n = r.order
     if n == 0:
         return np.array(r.d, dtype=complex)
@@ -568,7 +563,7 @@ def test_zeros_fallback_when_slycot_fails(monkeypatch):
     def broken(_r):
         raise slycot.exceptions.SlycotArithmeticError("simulated failure", 1)
 
-    monkeypatch.setattr(structure, "_zeros_slycot", broken)
+    monkeypatch.setattr(structure_zeros, "_zeros_slycot", broken)
     # our own square route; reference: the slycot result computed above, and the
     # independent Rosenbrock pencil
     match_sets(invariant_zeros(r), expected, atol=1e-8)

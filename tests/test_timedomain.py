@@ -1,4 +1,4 @@
-"""Tests for audit.dynamics.time_responses against closed forms and scipy.signal.
+"""Tests for audit.dynamics.time_responses and response_comparison against closed forms and scipy.signal.
 
 References used: first/second-order closed forms (Ogata, Modern Control Engineering,
 5th ed., sec. 5-3 -- from memory), scipy.signal.step / impulse / lsim / dstep / dimpulse,
@@ -20,8 +20,8 @@ from hypothesis import strategies as st
 
 from audit.errors import IncompatibleModelsError, InvalidModelError, NumericalTroubleError
 from audit.core.realization import Realization, similarity_transformed
+from audit.dynamics.response_comparison import compare_time_responses
 from audit.dynamics.time_responses import (
-    compare_time_responses,
     impulse_response,
     initial_condition_response,
     piecewise_constant_response,

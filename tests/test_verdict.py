@@ -136,7 +136,7 @@ def test_non_minimal_side_is_equivalent_and_hidden_modes_reported():
 
 def test_scipy_realization_of_transfer_function_is_equivalent_to_ours():
     # independent route: scipy.signal.tf2ss (controller canonical form) vs our conversion
-    from audit.core.conversions import realization_from_transfer_function
+    from audit.core.from_transfer_function import realization_from_transfer_function
 
     num, den = [2.0, 3.0, 40.0], [1.0, 6.0, 45.0, 100.0, 50.0]
     ours = realization_from_transfer_function([[num]], [[den]])

@@ -154,7 +154,7 @@ def test_decisive_bug_is_inconclusive_not_a_crash(monkeypatch, tmp_path, capsys)
 
 
 def test_discretization_claim_that_raises_is_not_computed(monkeypatch):
-    import audit.dynamics.discretization as disc_module
+    import audit.dynamics.discretization_checks as disc_module
     from audit.verdict.compare import compare_discretized
 
     monkeypatch.setattr(disc_module, "check_discretization_claim", _boom)
@@ -170,7 +170,7 @@ def test_discretization_claim_that_raises_is_not_computed(monkeypatch):
 
 
 def test_sample_period_ratio_that_raises_still_reports_different(monkeypatch):
-    import audit.dynamics.discretization as disc_module
+    import audit.dynamics.discretization_checks as disc_module
     from audit.verdict.compare import compare_sample_periods
 
     monkeypatch.setattr(disc_module, "detect_sample_period_mismatch", _boom)

@@ -80,6 +80,28 @@ def scaled_coefficients(coeffs: FloatArray, w0: float) -> FloatArray:
 
 
 # ------------------------------------------------------------------ stored forms
+def _values_with_bound(points: ComplexArray, shape: tuple[int, int],
+                       channel: Any) -> tuple[ComplexArray, FloatArray]:
+    """Values ``(k, p, m)`` of a stored representation at ``points`` and a bound on the
+    absolute error of σ_max per point, from ``channel(i, j, pts)`` = (values, error
+    bounds) of channel ``[i][j]``."""
+    pts = np.asarray(points, dtype=complex).ravel()
+    p, m = shape
+    values = np.zeros((pts.size, p, m), dtype=complex)
+    errors = np.zeros((pts.size, p, m))
+    for i in range(p):
+        for j in range(m):
+            values[:, i, j], errors[:, i, j] = channel(i, j, pts)
+    # σ_max is 1-Lipschitz in the Frobenius norm: bound the error matrix by it
+    return values, np.sqrt(np.sum(errors**2, axis=(1, 2)))
+
+
+def _ball_matrix(flint: Any, shape: tuple[int, int], entry: Any) -> Any:
+    """The ``p x m`` ball matrix (python-flint ``acb_mat``) of ``entry(i, j)``."""
+    p, m = shape
+    return flint.acb_mat(p, m, [entry(i, j) for i in range(p) for j in range(m)])
+
+
 @dataclass(frozen=True, eq=False)
 class StoredTransferFunction:
     """Transfer-function coefficients exactly as stored (descending powers).
@@ -119,26 +141,18 @@ class StoredTransferFunction:
 
     def evaluate(self, points: ComplexArray) -> tuple[ComplexArray, FloatArray]:
         """Values ``(k, p, m)`` and a bound on the absolute error of σ_max per point."""
-        pts = np.asarray(points, dtype=complex).ravel()
-        p, m = self.shape
-        values = np.zeros((pts.size, p, m), dtype=complex)
-        errors = np.zeros((pts.size, p, m))
-        for i, j, num, den in self.channels():
-            values[:, i, j], errors[:, i, j] = rational_with_bound(num, den, pts)
-        # σ_max is 1-Lipschitz in the Frobenius norm: bound the error matrix by it
-        return values, np.sqrt(np.sum(errors**2, axis=(1, 2)))
+        return _values_with_bound(points, self.shape, lambda i, j, pts: rational_with_bound(
+            self.numerator[i][j], self.denominator[i][j], pts))
 
     def ball_at(self, flint: Any, lam: Any) -> Any:
-        p, m = self.shape
-        entries = []
-        for i in range(p):
-            for j in range(m):
-                num = _ball_poly(flint, self.numerator[i][j], lam)
-                den = _ball_poly(flint, self.denominator[i][j], lam)
-                if den.contains(0):
-                    raise ZeroDivisionError("the stored denominator vanishes within the ball")
-                entries.append(num / den)
-        return flint.acb_mat(p, m, entries)
+        def entry(i: int, j: int) -> Any:
+            num = _ball_poly(flint, self.numerator[i][j], lam)
+            den = _ball_poly(flint, self.denominator[i][j], lam)
+            if den.contains(0):
+                raise ZeroDivisionError("the stored denominator vanishes within the ball")
+            return num / den
+
+        return _ball_matrix(flint, self.shape, entry)
 
     def describe(self) -> str:
         return "transfer-function coefficients as stored"
@@ -166,32 +180,23 @@ class StoredZerosPolesGain:
         return np.array(out, dtype=complex)
 
     def evaluate(self, points: ComplexArray) -> tuple[ComplexArray, FloatArray]:
-        pts = np.asarray(points, dtype=complex).ravel()
-        p, m = self.shape
-        values = np.zeros((pts.size, p, m), dtype=complex)
-        errors = np.zeros((pts.size, p, m))
-        for i in range(p):
-            for j in range(m):
-                values[:, i, j], errors[:, i, j] = factored_with_bound(
-                    self.zeros[i][j], self.poles_[i][j], float(self.gain[i, j]), pts)
-        return values, np.sqrt(np.sum(errors**2, axis=(1, 2)))
+        return _values_with_bound(points, self.shape, lambda i, j, pts: factored_with_bound(
+            self.zeros[i][j], self.poles_[i][j], float(self.gain[i, j]), pts))
 
     def ball_at(self, flint: Any, lam: Any) -> Any:
-        p, m = self.shape
-        entries = []
-        for i in range(p):
-            for j in range(m):
-                g = flint.acb(float(self.gain[i, j]))
-                if self.gain[i, j] != 0.0:
-                    for z in self.zeros[i][j]:
-                        g = g * (lam - flint.acb(float(z.real), float(z.imag)))
-                    for q in self.poles_[i][j]:
-                        step = lam - flint.acb(float(q.real), float(q.imag))
-                        if step.contains(0):
-                            raise ZeroDivisionError("a stored pole lies within the ball")
-                        g = g / step
-                entries.append(g)
-        return flint.acb_mat(p, m, entries)
+        def entry(i: int, j: int) -> Any:
+            g = flint.acb(float(self.gain[i, j]))
+            if self.gain[i, j] != 0.0:
+                for z in self.zeros[i][j]:
+                    g = g * (lam - flint.acb(float(z.real), float(z.imag)))
+                for q in self.poles_[i][j]:
+                    step = lam - flint.acb(float(q.real), float(q.imag))
+                    if step.contains(0):
+                        raise ZeroDivisionError("a stored pole lies within the ball")
+                    g = g / step
+            return g
+
+        return _ball_matrix(flint, self.shape, entry)
 
     def describe(self) -> str:
         return "zero-pole-gain factors as stored"

@@ -9,7 +9,7 @@ realization back into either library's state-space object.
 
 The stored data of the foreign object is kept as given: state-space matrices are copied
 unchanged; transfer functions and zeros-poles-gain lists are realized with lti-audit's own
-conversions (:mod:`audit.core.conversions`), exactly as a model document with the same
+conversions (:mod:`audit.core.from_transfer_function`, :mod:`audit.core.from_zeros_poles_gain`), exactly as a model document with the same
 coefficients would be, never through the other library's conversion routines.
 
 Time domain: python-control's ``dt = 0`` is continuous time and ``dt > 0`` a sample
@@ -132,7 +132,8 @@ def realization_from_object(obj: Any, *, name: str | None = None) -> Realization
     >>> r.order, r.is_discrete
     (1, False)
     """
-    from audit.core.conversions import realization_from_transfer_function, realization_from_zeros_poles_gain
+    from audit.core.from_transfer_function import realization_from_transfer_function
+    from audit.core.from_zeros_poles_gain import realization_from_zeros_poles_gain
 
     if isinstance(obj, Realization):
         return obj if name is None else obj.with_name(name)

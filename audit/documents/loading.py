@@ -532,7 +532,8 @@ def realization_from_document(doc: ModelDocument) -> Realization:
     """The state-space realization a document describes.
 
     State space is taken as written. Transfer functions and zeros-poles-gain are
-    converted by :mod:`audit.core.conversions` (imported here, lazily):
+    converted by :mod:`audit.core.from_transfer_function` and
+    :mod:`audit.core.from_zeros_poles_gain` (imported here, lazily):
     ``realization_from_transfer_function(numerator, denominator, sample_period)`` with
     nested lists ``[out][in][coeffs]`` (numerator leading zeros removed), and
     ``realization_from_zeros_poles_gain(zeros, poles, gain, sample_period)`` with nested
@@ -575,7 +576,8 @@ def realization_from_document(doc: ModelDocument) -> Realization:
                 "models this large (sampled sparse route)", field="sparse_state_space",
                 source=doc.name)
         return sparse_realization_from_document(doc).to_dense()
-    from audit.core import conversions  # lazy: the numeric conversions are another module's job
+    # lazy: the numeric conversions are another module's job
+    from audit.core import from_transfer_function, from_zeros_poles_gain
 
     what = doc.representation.replace("_", " ")
     try:
@@ -583,7 +585,7 @@ def realization_from_document(doc: ModelDocument) -> Realization:
             tf = doc.transfer_function
             numerator = [[_strip_leading_zeros(list(ch)) for ch in row] for row in tf.numerator]
             denominator = [[list(ch) for ch in row] for row in tf.denominator]
-            result = conversions.realization_from_transfer_function(
+            result = from_transfer_function.realization_from_transfer_function(
                 numerator, denominator, doc.sample_period)
         else:
             factored = doc.zeros_poles_gain
@@ -591,7 +593,7 @@ def realization_from_document(doc: ModelDocument) -> Realization:
             zeros = [[[complex(re, im) for re, im in ch] for ch in row] for row in factored.zeros]
             poles = [[[complex(re, im) for re, im in ch] for ch in row] for row in factored.poles]
             gain = np.array(factored.gain, dtype=float)
-            result = conversions.realization_from_zeros_poles_gain(
+            result = from_zeros_poles_gain.realization_from_zeros_poles_gain(
                 zeros, poles, gain, doc.sample_period)
     except AuditError:
         raise

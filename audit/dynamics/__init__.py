@@ -1,1 +1,1 @@
-"""Stage 3c, dynamics: discretization and exact time responses."""
+"""Stage 3c, dynamics: discretization and the checks of discretization claims; exact time responses, their horizon and their comparison."""

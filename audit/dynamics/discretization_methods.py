@@ -2,7 +2,8 @@
 
 The names are the trade's full terms, used the same way on the command line
 (``--discretization``), in claims manifests, in service submissions and in reports.
-:mod:`audit.dynamics.discretization` implements each method.
+:mod:`audit.dynamics.discretization` implements each method;
+:mod:`audit.dynamics.discretization_checks` checks claims made with these names.
 """
 
 from __future__ import annotations

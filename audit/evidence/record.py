@@ -149,10 +149,10 @@ __all__ = [
 def stability_label(poles: NDArray[np.complexfloating], discrete: bool) -> str:
     """``"stable"``, ``"marginal"`` or ``"unstable"`` for a set of poles.
 
-    One rule for the whole project: :func:`audit.structure.minimal.mode_stability` per mode;
+    One rule for the whole project: :func:`audit.structure.hidden_modes.mode_stability` per mode;
     the set is unstable if any mode is, else marginal if any mode is.
     """
-    from audit.structure.minimal import mode_stability
+    from audit.structure.hidden_modes import mode_stability
 
     labels = {mode_stability(complex(p), discrete=discrete) for p in np.asarray(poles).ravel()}
     if "unstable" in labels:
@@ -162,15 +162,16 @@ def stability_label(poles: NDArray[np.complexfloating], discrete: bool) -> str:
 
 def is_unstable_mode(p: complex, discrete: bool) -> bool:
     """True for a mode on or beyond the stability boundary (marginal counts), by
-    :func:`audit.structure.minimal.mode_stability`."""
-    from audit.structure.minimal import mode_stability
+    :func:`audit.structure.hidden_modes.mode_stability`."""
+    from audit.structure.hidden_modes import mode_stability
 
     return mode_stability(complex(p), discrete=discrete) != "stable"
 
 
 def minimal_order_evidence(label: str, r: Realization, *, tol: float | None = None) -> tuple[Evidence, Any]:
     """Minimal order and hidden modes of one model (orthogonal staircase)."""
-    from audit.structure.minimal import minimal_realization, mode_couplings
+    from audit.structure.minimal import minimal_realization
+    from audit.structure.mode_coupling import mode_couplings
 
     start = time.perf_counter()
     mr = minimal_realization(r, tol=tol)

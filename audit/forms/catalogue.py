@@ -31,7 +31,7 @@ Published methods implemented here
   decomposition of M. G. Safonov, E. A. Jonckheere, M. Verma and D. J. N. Limebeer,
   "Synthesis of positive real multivariable feedback systems", Int. J. Control 45 (1987)
   817-842 (ordered Schur form + one Sylvester equation), as SLICOT ``AB13AD`` does.
-* Kalman and staircase forms: orthogonal staircase reduction from :mod:`audit.structure.minimal`.
+* Kalman and staircase forms: orthogonal staircase reduction from :mod:`audit.structure.staircase`.
 
 Recognition (:func:`recognise_form`, :func:`check_claimed_form`) works by pattern within
 a relative tolerance and names the variant found.
@@ -1431,7 +1431,7 @@ def _structure_details(result: Any) -> dict[str, Any]:
 
 
 def kalman_form(r: Realization, *, tol: float | None = None) -> FormConversion:
-    """Kalman decomposition form via :func:`audit.structure.minimal.kalman_decomposition`.
+    """Kalman decomposition form via :func:`audit.structure.kalman.kalman_decomposition`.
 
     States ordered (co, cu, uo, uu); the structure module computes
     ``(Q^T D^-1 A D Q, Q^T D^-1 B, C D Q, D)`` with orthogonal ``Q`` and a diagonal
@@ -1454,7 +1454,7 @@ def kalman_form(r: Realization, *, tol: float | None = None) -> FormConversion:
     NumericalTroubleError
         If the structure module fails.
     """
-    from audit.structure.minimal import kalman_decomposition  # noqa: PLC0415 - lazy: parallel module
+    from audit.structure.kalman import kalman_decomposition  # noqa: PLC0415 - lazy: parallel module
 
     if r.order == 0:
         return _identity_conversion("kalman", r)
@@ -1471,7 +1471,7 @@ def kalman_form(r: Realization, *, tol: float | None = None) -> FormConversion:
 
 
 def staircase_form(r: Realization, *, tol: float | None = None) -> FormConversion:
-    """Controllability staircase form via :func:`audit.structure.minimal.controllable_staircase`.
+    """Controllability staircase form via :func:`audit.structure.staircase.controllable_staircase`.
 
     ``(Q^T A Q, Q^T B, C Q, D)`` with orthogonal ``Q`` (``T = Q^T``, cond(T) = 1):
     ``A`` block upper Hessenberg on the controllable part, uncontrollable part last.
@@ -1493,7 +1493,7 @@ def staircase_form(r: Realization, *, tol: float | None = None) -> FormConversio
     NumericalTroubleError
         If the structure module fails.
     """
-    from audit.structure.minimal import controllable_staircase  # noqa: PLC0415 - lazy: parallel module
+    from audit.structure.staircase import controllable_staircase  # noqa: PLC0415 - lazy: parallel module
 
     if r.order == 0:
         return _identity_conversion("staircase", r)

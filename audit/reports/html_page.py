@@ -33,7 +33,7 @@ same without the enlarged view.
 
 No numerical method of its own is implemented here: responses, error estimates, zeros,
 step responses and the frequency grid come from :mod:`audit.evidence.frequency`,
-:mod:`audit.verdict.compare`, :mod:`audit.structure.minimal` and :mod:`audit.dynamics.time_responses`. Every string
+:mod:`audit.verdict.compare`, :mod:`audit.structure.zeros` and :mod:`audit.dynamics.time_responses`. Every string
 that came from a user (model names, sources, claims) is HTML-escaped. Figures are built
 with the object-oriented :class:`matplotlib.figure.Figure` API, never ``pyplot``, so that
 rendering is safe from several threads of the service at once.
@@ -627,7 +627,7 @@ def _unaccepted_problems(data: Mapping[str, Any]) -> list[str]:
 def _pole_zero_figure(models: Sequence[Realization], data: Mapping[str, Any]) -> str:
     from matplotlib.patches import Circle, Rectangle
 
-    from audit.structure.minimal import transmission_zeros
+    from audit.structure.zeros import transmission_zeros
 
     fig = _new_figure(_FIG_WIDTH, 6.0)
     ax = fig.add_subplot(1, 1, 1)

@@ -17,8 +17,8 @@ model (``reference``), and the supplier's claims. The audit
    ``sample_period``   the document's sample period, relative tolerance 1e-9
                        (:data:`audit.core.realization.SAMPLE_PERIOD_RTOL`); ``null`` claims
                        continuous time;
-   ``discretization``  :func:`audit.dynamics.discretization.check_discretization_claim` of the
-                       continuous reference against the model, tolerance ``rtol``;
+   ``discretization``  :func:`audit.dynamics.discretization_checks.check_discretization_claim`
+                       of the continuous reference against the model, tolerance ``rtol``;
    ``claimed_form``    :func:`audit.forms.catalogue.check_claimed_form` (pattern tolerance
                        ``form_rtol``); a document's own ``claimed_form`` is checked too;
    ``dc_gain``         ``G(0)`` (continuous) or ``G(1)`` (discrete) from
@@ -431,7 +431,7 @@ def _pair(z: complex) -> list[float]:
 
 
 def _check_claims(ps: ParsedSubmission, tol: Tolerances) -> list[dict[str, Any]]:
-    from audit.dynamics.discretization import check_discretization_claim
+    from audit.dynamics.discretization_checks import check_discretization_claim
     from audit.evidence.record import to_jsonable
     from audit.forms.catalogue import check_claimed_form
     from audit.verdict.inspection import inspect_model

@@ -1,1 +1,1 @@
-"""Stage 3a, structure: orthogonal staircase, minimal realizations, hidden modes, transmission zeros."""
+"""Stage 3a, structure: orthogonal staircase, state scaling, minimal realizations, Kalman decomposition, hidden modes, mode coupling, transmission zeros."""

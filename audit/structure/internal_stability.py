@@ -2,7 +2,7 @@
 
 Input-output equivalence is the verdict. On top of it, a model that has an unstable or
 marginally stable *hidden* or *nearly hidden* mode (see
-:func:`audit.structure.minimal.mode_couplings`) that the reference model does not have is a
+:func:`audit.structure.mode_coupling.mode_couplings`) that the reference model does not have is a
 **problem**: it makes ``lti-audit compare`` exit with status 1 whatever the verdict,
 makes ``lti-audit check`` classify the file as changed in internal stability, and fails
 a service submission -- unless a team accepts it explicitly, with a reason
@@ -16,7 +16,7 @@ that the reference carries visibly (coupled) is still new, because hiding it is 
 the change that makes it impossible to stabilise from the inputs or to see at the
 outputs.
 
-This module only arranges results of :mod:`audit.structure.minimal`; it never prints.
+This module only arranges results of :mod:`audit.structure.mode_coupling`; it never prints.
 """
 
 from __future__ import annotations
@@ -47,7 +47,7 @@ class ModelModes:
     label : str
         Model name (as in the report).
     modes : tuple of dict
-        :meth:`audit.structure.minimal.ModeCoupling.as_dict` of every hidden or nearly hidden
+        :meth:`audit.structure.mode_coupling.ModeCoupling.as_dict` of every hidden or nearly hidden
         mode (location, classification, kind, stability, unstable, coupling, method,
         eigenvalue_condition).
     thresholds : dict
@@ -86,7 +86,7 @@ def model_modes(r: Realization, *, label: str | None = None,
     ModelModes
     """
     from audit.core.threads import limited_blas_threads
-    from audit.structure.minimal import mode_couplings
+    from audit.structure.mode_coupling import mode_couplings
 
     with limited_blas_threads():
         mc = mode_couplings(r, tol=rank_tol)
@@ -99,7 +99,7 @@ def model_modes(r: Realization, *, label: str | None = None,
 def modes_from_comparisons(r: Realization, pairs: list[Any]) -> ModelModes | None:
     """The :class:`ModelModes` of ``r`` as already computed inside ``pairs``
     (the ``minimal_order:<name>`` evidence of :func:`audit.verdict.compare.compare_pair`, which
-    runs :func:`audit.structure.minimal.mode_couplings` on the stored model), or None when no
+    runs :func:`audit.structure.mode_coupling.mode_couplings` on the stored model), or None when no
     comparison analysed this very model (e.g. only a discretized copy of it)."""
     key = f"minimal_order:{r.name}"
     for pair in pairs:

@@ -175,7 +175,7 @@ def _shared(r1: Realization, r2: Realization, min1: Any, min2: Any) -> _Shared:
     from audit.evidence.frequency import TransferEvaluator
     from audit.evidence.frequency_grid import adaptive_frequency_grid
     from audit.evidence.peak_gain import peak_gain
-    from audit.structure.minimal import transmission_zeros
+    from audit.structure.zeros import transmission_zeros
 
     contour = choose_contour([r1, r2])
     s1, s2 = contour.apply(r1), contour.apply(r2)
@@ -1118,7 +1118,7 @@ TIME_DOMAIN_INITIAL_MAX_ORDER = 20
 
 def _time_domain(sh: _Shared, opts: Options, sim: Evidence) -> Evidence:
     """Step and impulse responses (and initial-condition responses through T)."""
-    from audit.dynamics.time_responses import compare_time_responses
+    from audit.dynamics.response_comparison import compare_time_responses
 
     if max(sh.r1.order, sh.r2.order) > TIME_DOMAIN_MAX_ORDER:
         return skipped("time_responses", "Time responses",
@@ -1419,7 +1419,7 @@ def _compare_pair(r1: Realization, r2: Realization, opts: Options) -> PairCompar
 
     grid_ev = _isolated("frequency_grid", "Frequency response on the adaptive grid", grid_evidence)
     markov = _isolated("markov_parameters", "Scaled Markov parameters", lambda: _markov(sh, opts))
-    from audit.structure.minimal import transmission_zeros
+    from audit.structure.zeros import transmission_zeros
 
     def needs_minimal(fn: Any) -> Any:
         if min1 is None or min2 is None:
@@ -1665,7 +1665,7 @@ def compare_discretized(
     The continuous one is discretized at the discrete one's period with ``method``
     (:func:`audit.dynamics.discretization.discretize`) and the two discrete models are audited
     with :func:`compare_pair`. The claim check of
-    :func:`audit.dynamics.discretization.check_discretization_claim` is added as evidence; when
+    :func:`audit.dynamics.discretization_checks.check_discretization_claim` is added as evidence; when
     the claim fails it names the method that does match, if any.
 
     Raises
@@ -1675,7 +1675,8 @@ def compare_discretized(
     InvalidModelError
         If the method is unknown or does not apply (matched pole-zero on MIMO models).
     """
-    from audit.dynamics.discretization import check_discretization_claim, discretize
+    from audit.dynamics.discretization import discretize
+    from audit.dynamics.discretization_checks import check_discretization_claim
     from audit.errors import IncompatibleModelsError
 
     opts = options or Options()
@@ -1740,9 +1741,9 @@ def compare_sample_periods(r1: Realization, r2: Realization, *, options: Options
     They cannot be the same discrete-time system, so the verdict is ``different``; the
     evidence says whether they agree once one period is re-read (the same continuous
     dynamics sampled at the other period, or a mislabelled period), using
-    :func:`audit.dynamics.discretization.detect_sample_period_mismatch`.
+    :func:`audit.dynamics.discretization_checks.detect_sample_period_mismatch`.
     """
-    from audit.dynamics.discretization import detect_sample_period_mismatch
+    from audit.dynamics.discretization_checks import detect_sample_period_mismatch
 
     opts = options or Options()
     start = time.perf_counter()

@@ -2,7 +2,7 @@
 hidden modes, conditioning of the realization, and its claimed form.
 
 A *problem* (exit status 1 from ``lti-audit inspect``) is an unstable or marginally
-stable hidden or nearly hidden mode (:func:`audit.structure.minimal.mode_couplings`) or a
+stable hidden or nearly hidden mode (:func:`audit.structure.mode_coupling.mode_couplings`) or a
 claimed form the realization is not in. Stable hidden and nearly hidden modes and poor
 conditioning are reported as notes. Rank decisions without a clear singular-value gap make the
 inspection ``inconclusive``.
@@ -117,7 +117,7 @@ def inspect_model(r: Realization, *, claimed_form: str | None = None,
 
 def _inspect_model(r: Realization, *, claimed_form: str | None, rank_tol: float | None) -> Inspection:
     from audit.evidence.peak_gain import peak_gain
-    from audit.structure.minimal import transmission_zeros
+    from audit.structure.zeros import transmission_zeros
 
     start = time.perf_counter()
     label = r.name or "model"

@@ -51,7 +51,7 @@ says exactly one of ``expect``, ``form`` or ``discretization``:
     (:func:`audit.forms.catalogue.check_claimed_form`; default tolerance :data:`FORM_RTOL`).
 ``discretization = {method = ..., of = ..., prewarp_frequency = ...}``
     every listed (discrete-time) model is that discretization of the continuous-time
-    model ``of`` (:func:`audit.dynamics.discretization.check_discretization_claim`).
+    model ``of`` (:func:`audit.dynamics.discretization_checks.check_discretization_claim`).
 
 Internal stability is part of "unchanged" (:mod:`audit.structure.internal_stability`): an
 ``equivalent`` or ``similar`` claim fails when a model has an unstable or marginally
@@ -1137,7 +1137,7 @@ def _check_form(claim: Claim, models: _Models, rtol: float) -> dict[str, Any]:
 
 
 def _check_discretization(claim: Claim, models: _Models, rtol: float) -> dict[str, Any]:
-    from audit.dynamics.discretization import check_discretization_claim
+    from audit.dynamics.discretization_checks import check_discretization_claim
 
     spec = claim.discretization
     assert spec is not None

@@ -164,14 +164,16 @@ def _block_stack(parts: list[tuple[Any, Any, Any, Any]], sample_period: float | 
 
 
 def _audit_tf(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
-    from audit.core.conversions import realization_from_transfer_function, transfer_function_from_realization
+    from audit.core.from_realization import transfer_function_from_realization
+    from audit.core.from_transfer_function import realization_from_transfer_function
 
     tf = transfer_function_from_realization(r)
     return r, realization_from_transfer_function(tf.numerator, tf.denominator, r.sample_period)
 
 
 def _audit_zeros_poles_gain_round_trip(r: Realization, spec: SystemSpec) -> tuple[Realization, Realization]:
-    from audit.core.conversions import realization_from_zeros_poles_gain, zeros_poles_gain_from_realization
+    from audit.core.from_realization import zeros_poles_gain_from_realization
+    from audit.core.from_zeros_poles_gain import realization_from_zeros_poles_gain
 
     z = zeros_poles_gain_from_realization(r)
     pairs = lambda cells: [[[[v.real, v.imag] for v in cell] for cell in row] for row in cells]  # noqa: E731
